@@ -1,0 +1,137 @@
+"""The ``fluidgap`` command line: parses arguments, calls the library, prints.
+
+Exit codes: 0 success; 2 bad input or usage (one line on stderr naming the file and field);
+1 an internal error (set FLUIDGAP_DEBUG=1 for the traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import sys
+import traceback
+import warnings
+from typing import Any, Callable, Sequence
+
+from fluid.errors import ScenarioError
+
+from . import commands
+
+__all__ = ["main"]
+
+
+class UsageError(Exception):
+    """Bad command-line usage: reported in one line, exit code 2."""
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # one clear line instead of usage + error
+        raise UsageError(f"{self.prog}: {message} (see {self.prog} --help)")
+
+
+def _common(p: argparse.ArgumentParser, *, scenario: str = "required") -> None:
+    if scenario == "required":
+        p.add_argument("scenario", help="scenario YAML file")
+    elif scenario == "optional":
+        p.add_argument("scenario", nargs="?", help="scenario YAML file (default: the built-in demo)")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="PATH=VALUE",
+                   help="change a field before validation, e.g. pools.front_desk=12 (repeatable)")
+    p.add_argument("--json", action="store_true", help="print one JSON document instead of tables")
+
+
+def _simulation_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--reps", type=int, help="replications (default: the scenario's run.replications)")
+    p.add_argument("--horizon", type=float, help="simulated time per replication, scenario time unit")
+    p.add_argument("--warmup", type=float, help="time discarded at the start of each replication")
+    p.add_argument("--seed", type=int, help="base seed (default: the scenario's run.seed)")
+    p.add_argument("--workers", type=int, default=None,
+                   help="worker processes (default: the number of cores; 1 = in this process)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--max-jobs", type=int, default=None, dest="max_jobs",
+                   help="jobs inside the net at which a replication is stopped as unstable")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="fluidgap",
+        description="Fluid models of timed Petri nets set against stochastic simulation.",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    p = sub.add_parser("inspect", help="validate a scenario and summarise its net")
+    _common(p)
+    p.set_defaults(handler=commands.inspect)
+
+    p = sub.add_parser("fluid", help="fluid throughput, bottlenecks and loads")
+    _common(p)
+    p.add_argument("--method", choices=["auto", "lp", "counters"], default="auto",
+                   help="lp: the throughput LP (no priorities, constant rates); counters: "
+                   "integrate the counter equations (default: auto)")
+    p.add_argument("--dt", type=float, help="time step of the counter integration")
+    p.set_defaults(handler=commands.fluid)
+
+    p = sub.add_parser("simulate", help="stochastic simulation with confidence intervals")
+    _common(p)
+    _simulation_options(p)
+    p.add_argument("--interval", type=float, metavar="STEP",
+                   help="also tabulate arrivals, served, abandoned, service level and queue per "
+                   "interval of this length")
+    p.set_defaults(handler=commands.simulate)
+    return parser
+
+
+def _emit_json(doc: Any) -> None:
+    json.dump(_jsonable(doc), sys.stdout, indent=2, allow_nan=False)
+    sys.stdout.write("\n")
+
+
+def _jsonable(x: Any) -> Any:
+    """JSON has no inf or nan: both become null."""
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    if isinstance(x, dict):
+        return {str(k): _jsonable(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_jsonable(v) for v in x]
+    if hasattr(x, "item") and callable(x.item) and getattr(x, "shape", None) == ():
+        return _jsonable(x.item())
+    return x
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``fluidgap`` console script."""
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            outcome = args.handler(args)
+        for w in caught:
+            if not issubclass(w.category, (DeprecationWarning, PendingDeprecationWarning)):
+                print(f"warning: {w.message}", file=sys.stderr)
+        if args.json:
+            _emit_json(outcome.json)
+        else:
+            print(outcome.text)
+        return outcome.exit_code
+    except (ScenarioError, UsageError, commands.InputError) as exc:
+        print(str(exc), file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("fluidgap: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+    except Exception as exc:  # an internal error: say so plainly, full trace on request
+        if os.environ.get("FLUIDGAP_DEBUG"):
+            traceback.print_exc()
+        print(f"fluidgap: internal error: {type(exc).__name__}: {exc} "
+              "(set FLUIDGAP_DEBUG=1 for the traceback)", file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

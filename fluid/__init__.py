@@ -1,0 +1,19 @@
+"""fluid: the scenario model and the deterministic (fluid) semantics of a timed Petri net.
+
+Public API: :func:`load_scenario`, :func:`load_scenario_text`, :class:`Scenario`,
+:func:`with_changes`, :func:`throughput` and the error types.
+"""
+
+from .errors import ScenarioError, SolverError
+from .loading import ScenarioWarning, load_scenario, load_scenario_text
+from .scenario import Scenario, with_changes
+
+__all__ = [
+    "Scenario",
+    "ScenarioError",
+    "ScenarioWarning",
+    "SolverError",
+    "load_scenario",
+    "load_scenario_text",
+    "with_changes",
+]

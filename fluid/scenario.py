@@ -1,0 +1,340 @@
+"""The scenario model: one frozen description of the net that both engines read.
+
+A :class:`Scenario` is built by :func:`fluid.loading.load_scenario` (which validates the YAML
+document of design.md §3) and never changes afterwards. Variants (another staffing plan, scaled
+volumes) come from :func:`with_changes`, which applies overrides to the scenario's document and
+validates the result again, so a variant is exactly what the same YAML edited by hand would give.
+
+All times are in the scenario's ``time_unit``; rates are per that unit.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Any, Iterator, Mapping
+
+from .distributions import Distribution
+
+__all__ = [
+    "FrozenMap",
+    "RunSettings",
+    "Profile",
+    "Source",
+    "Schedule",
+    "Pool",
+    "Place",
+    "Transition",
+    "ServiceTarget",
+    "Targets",
+    "Scenario",
+    "with_changes",
+]
+
+
+class FrozenMap(Mapping):
+    """A read-only, hashable, picklable mapping that keeps insertion order."""
+
+    __slots__ = ("_data",)
+
+    def __init__(self, data: Mapping | None = None):
+        object.__setattr__(self, "_data", dict(data or {}))
+
+    def __getitem__(self, key):
+        return self._data[key]
+
+    def __iter__(self) -> Iterator:
+        return iter(self._data)
+
+    def __len__(self) -> int:
+        return len(self._data)
+
+    def __hash__(self) -> int:
+        return hash(tuple(self._data.items()))
+
+    def __eq__(self, other) -> bool:
+        return isinstance(other, Mapping) and dict(self._data) == dict(other)
+
+    def __repr__(self) -> str:
+        return f"FrozenMap({self._data!r})"
+
+    def __reduce__(self):
+        return (FrozenMap, (self._data,))
+
+    def __setattr__(self, name, value):
+        raise AttributeError("FrozenMap is read-only")
+
+
+@dataclass(frozen=True)
+class RunSettings:
+    """Default simulation settings of a scenario (command-line flags override them)."""
+
+    horizon: float = 600.0
+    warmup: float = 0.0
+    replications: int = 10
+    seed: int = 0
+
+
+@dataclass(frozen=True)
+class Profile:
+    """A piecewise-constant arrival rate: ``rates[i]`` on ``[i*step, (i+1)*step)``; the last value
+    holds after the end."""
+
+    step: float
+    rates: tuple[float, ...]
+
+    def rate_at(self, t: float) -> float:
+        i = int(t // self.step)
+        return self.rates[min(max(i, 0), len(self.rates) - 1)]
+
+    def cumulative(self, t: float) -> float:
+        """Expected arrivals in ``[0, t]``: the integral of the rate."""
+        if t <= 0:
+            return 0.0
+        full = int(t // self.step)
+        total = 0.0
+        for i in range(min(full, len(self.rates))):
+            total += self.rates[i] * self.step
+        if full >= len(self.rates):
+            total += self.rates[-1] * (t - len(self.rates) * self.step)
+        else:
+            total += self.rates[full] * (t - full * self.step)
+        return total
+
+
+@dataclass(frozen=True)
+class Source:
+    """Exogenous arrivals into one place: Poisson at ``rate``, a Poisson process with a
+    piecewise-constant ``profile``, or the fixed arrival times of a ``trace``."""
+
+    name: str
+    into: str
+    rate: float | None = None
+    profile: Profile | None = None
+    trace: tuple[float, ...] | None = None
+
+    @property
+    def kind(self) -> str:
+        if self.rate is not None:
+            return "poisson"
+        return "profile" if self.profile is not None else "trace"
+
+    def cumulative(self, t: float) -> float:
+        """Arrivals expected (rate, profile) or recorded (trace) in ``[0, t]``."""
+        if self.rate is not None:
+            return self.rate * max(t, 0.0)
+        if self.profile is not None:
+            return self.profile.cumulative(t)
+        import bisect
+
+        return float(bisect.bisect_right(self.trace, t))
+
+    def mean_rate(self, horizon: float) -> float:
+        """Average arrival rate over ``[0, horizon]``."""
+        if self.rate is not None:
+            return self.rate
+        return self.cumulative(horizon) / horizon
+
+
+@dataclass(frozen=True)
+class Schedule:
+    """Staff per interval: ``staff[i]`` on ``[i*step, (i+1)*step)``; the last value holds after."""
+
+    step: float
+    staff: tuple[int, ...]
+
+    def staff_at(self, t: float) -> int:
+        i = int(t // self.step)
+        return self.staff[min(max(i, 0), len(self.staff) - 1)]
+
+
+@dataclass(frozen=True)
+class Pool:
+    """Anonymous agents. ``staff`` is the initial marking (the first interval's staff when there
+    is a schedule). ``priority`` orders the pool's output transitions, highest first."""
+
+    name: str
+    staff: int
+    priority: tuple[str, ...] = ()
+    schedule: Schedule | None = None
+
+    def staff_at(self, t: float) -> int:
+        return self.staff if self.schedule is None else self.schedule.staff_at(t)
+
+    def mean_staff(self, horizon: float) -> float:
+        if self.schedule is None:
+            return float(self.staff)
+        s = self.schedule
+        total, t = 0.0, 0.0
+        i = 0
+        while t < horizon:
+            end = min(horizon, (i + 1) * s.step) if i < len(s.staff) - 1 else horizon
+            total += s.staff[min(i, len(s.staff) - 1)] * (end - t)
+            t, i = end, i + 1
+        return total / horizon
+
+
+@dataclass(frozen=True)
+class Place:
+    """A place where jobs reside. ``hold``: time before a token is available (none = at once);
+    ``route``: preselection proportions over the output transitions; ``priority``: output
+    transitions in order, highest first; ``patience``: time an available job waits before it
+    abandons; ``abandon_to``: where an abandoning job goes (none = it leaves)."""
+
+    name: str
+    hold: Distribution | None = None
+    route: FrozenMap | None = None
+    priority: tuple[str, ...] = ()
+    patience: Distribution | None = None
+    abandon_to: str | None = None
+
+    @property
+    def hold_mean(self) -> float:
+        return 0.0 if self.hold is None else self.hold.mean
+
+
+@dataclass(frozen=True)
+class Transition:
+    """Consumes ``inputs`` (name -> arc weight) and produces ``outputs`` (name -> arc weight)."""
+
+    name: str
+    inputs: FrozenMap
+    outputs: FrozenMap
+
+
+@dataclass(frozen=True)
+class ServiceTarget:
+    """Share ``goal`` of the jobs that become available in ``place`` taken within ``within``."""
+
+    place: str
+    within: float
+    goal: float
+
+
+@dataclass(frozen=True)
+class Targets:
+    service: FrozenMap = field(default_factory=FrozenMap)
+    abandonment_max: float | None = None
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A validated net with its parameters and targets. Read-only; see :func:`with_changes`."""
+
+    name: str
+    time_unit: str
+    run: RunSettings
+    sources: FrozenMap  # name -> Source
+    pools: FrozenMap  # name -> Pool
+    places: FrozenMap  # name -> Place
+    transitions: FrozenMap  # name -> Transition
+    targets: Targets
+    file: str = "<string>"
+    document: str = field(default="{}", repr=False, compare=False)
+    base_dir: str | None = field(default=None, repr=False, compare=False)
+
+    # --- structure ------------------------------------------------------------------------------
+
+    def is_pool(self, name: str) -> bool:
+        return name in self.pools
+
+    def is_job_place(self, name: str) -> bool:
+        return name in self.places
+
+    @cached_property
+    def _outputs(self) -> dict[str, tuple[str, ...]]:
+        out: dict[str, list[str]] = {n: [] for n in (*self.places, *self.pools)}
+        for t in self.transitions.values():
+            for p in t.inputs:
+                out[p].append(t.name)
+        return {k: tuple(v) for k, v in out.items()}
+
+    @cached_property
+    def _inputs(self) -> dict[str, tuple[str, ...]]:
+        out: dict[str, list[str]] = {n: [] for n in (*self.places, *self.pools)}
+        for t in self.transitions.values():
+            for p in t.outputs:
+                out[p].append(t.name)
+        return {k: tuple(v) for k, v in out.items()}
+
+    def outputs_of(self, node: str) -> tuple[str, ...]:
+        """Transitions that consume from place or pool ``node``, in declaration order."""
+        return self._outputs[node]
+
+    def inputs_of(self, node: str) -> tuple[str, ...]:
+        """Transitions that put tokens into place or pool ``node``, in declaration order."""
+        return self._inputs[node]
+
+    def sources_into(self, place: str) -> tuple[str, ...]:
+        return tuple(s.name for s in self.sources.values() if s.into == place)
+
+    def job_input(self, transition: str) -> str | None:
+        """The job place ``transition`` takes a job from, or None."""
+        for p in self.transitions[transition].inputs:
+            if p in self.places:
+                return p
+        return None
+
+    def job_output(self, transition: str) -> str | None:
+        """The job place ``transition`` puts its job into, or None (the job ends there)."""
+        for p in self.transitions[transition].outputs:
+            if p in self.places:
+                return p
+        return None
+
+    def ends_job(self, transition: str) -> bool:
+        return self.job_input(transition) is not None and self.job_output(transition) is None
+
+    @cached_property
+    def ending_transitions(self) -> tuple[str, ...]:
+        return tuple(t for t in self.transitions if self.ends_job(t))
+
+    def proportion(self, place: str, transition: str) -> float:
+        """Routing proportion π of ``transition`` at ``place`` (1 without a route)."""
+        node = self.places.get(place)
+        if node is None or node.route is None:
+            return 1.0
+        return node.route[transition]
+
+    def priority_order(self, node: str) -> tuple[str, ...]:
+        """Output transitions of ``node`` in priority order (empty when it has no priority)."""
+        obj = self.places.get(node) or self.pools.get(node)
+        return obj.priority
+
+    @property
+    def has_priorities(self) -> bool:
+        return any(p.priority for p in self.places.values()) or any(
+            p.priority for p in self.pools.values()
+        )
+
+    @property
+    def has_time_variation(self) -> bool:
+        """True when a source has a profile or trace or a pool has a schedule."""
+        return any(s.rate is None for s in self.sources.values()) or any(
+            p.schedule is not None for p in self.pools.values()
+        )
+
+    @property
+    def has_patience(self) -> bool:
+        return any(p.patience is not None for p in self.places.values())
+
+    def to_document(self) -> dict[str, Any]:
+        """The (override-applied) YAML document this scenario was validated from."""
+        return json.loads(self.document)
+
+
+def with_changes(scenario: Scenario, changes: Mapping[str, Any] | None = None, **kw) -> Scenario:
+    """Return a validated copy of ``scenario`` with ``changes`` applied to its document.
+
+    ``changes`` maps dotted paths to Python values, e.g. ``{"pools.front_desk": 12,
+    "sources.calls.rate": 3.5}`` (the same paths as ``--set``). Keyword arguments are also
+    accepted as top-level paths. Raises :class:`fluid.errors.ScenarioError` if the result is not
+    a valid scenario.
+    """
+    from .loading import apply_override, scenario_from_document
+
+    doc = scenario.to_document()
+    for path, value in {**(changes or {}), **kw}.items():
+        apply_override(doc, path, value, file=scenario.file)
+    return scenario_from_document(doc, file=scenario.file, base_dir=scenario.base_dir)
