@@ -144,31 +144,54 @@ def fluid_text(s: Scenario, r) -> str:
     return "\n\n".join(parts)
 
 
+def _est(e, reps: int) -> str:
+    text = fmt_estimate(e)
+    return text if e is None or e.n == reps else f"{text} (n={e.n})"
+
+
 def simulation_text(s: Scenario, r) -> str:
     unit = s.time_unit
     n = r.replications
     head = (f"{s.name}: simulation, {n} replications of [{fmt(r.warmup)}, {fmt(r.horizon)}] {unit}, "
-            f"seed {r.seed}; every figure is a mean [95 % interval] over {n} replications")
+            f"seed {r.seed}.\nEvery figure is a mean [95 % Student t interval] over the {n} "
+            "replications (n= marks fewer, where a replication had nothing to measure).")
     parts = [head]
     parts.append(format_table(
         ["transition", f"rate per {unit}"],
-        [[t, fmt_estimate(v["rate"])] for t, v in r.transitions.items()],
+        [[t, _est(v["rate"], n)] for t, v in r.transitions.items()],
     ))
+    from desim import waiting_places
+
     rows = []
-    for p, v in r.places.items():
-        rows.append([p, fmt_estimate(v["wait"]), fmt_estimate(v["queue"]),
-                     fmt_estimate(v["abandoned"]),
-                     fmt_estimate(v["served_within"]) if "served_within" in v else "-"])
+    for p in waiting_places(s):
+        v = r.places[p]
+        rows.append([p, _est(v["wait"], n), _est(v["queue"], n), _est(v["abandoned"], n),
+                     _est(v["served_within"], n) if "served_within" in v else "-"])
     parts.append(format_table(
-        ["place", f"wait ({unit})", "queue", "abandoned", "served within target"], rows))
+        ["waiting place", f"wait ({unit})", "queue", "abandoned share", "served within target"],
+        rows))
     if r.pools:
         parts.append(format_table(
-            ["pool", "busy fraction"], [[p, fmt_estimate(v["busy"])] for p, v in r.pools.items()]))
-    frame = getattr(r, "sources_frame", None)
-    if callable(frame):
-        parts.append("per source:\n" + frame().to_string(index=False))
-    if getattr(r, "intervals", None) is not None:
-        parts.append("per interval:\n" + r.intervals.to_string(index=False))
+            ["pool", "busy fraction"], [[p, _est(v["busy"], n)] for p, v in r.pools.items()]))
+    if r.sources:
+        parts.append(format_table(
+            ["source", "arrivals", "completed", "abandoned share", f"total wait ({unit})"],
+            [[name, _est(v["arrivals"], n), _est(v["completed"], n),
+              _est(v["abandoned_share"], n), _est(v["total_wait"], n)]
+             for name, v in r.sources.items()]))
+    if r.intervals is not None:
+        rows = [[f"{fmt(row.start)}-{fmt(row.end)}", row.metric, row.name,
+                 _est(_Row(row.mean, row.low, row.high, int(row.n)), n)]
+                for row in r.intervals.itertuples(index=False)]
+        parts.append(format_table(["interval", "metric", "where", "mean [95 % interval]"], rows,
+                                  title=f"per interval ({unit}):"))
     if r.warnings:
         parts.append("\n".join(f"note: {w}" for w in r.warnings))
     return "\n\n".join(parts)
+
+
+class _Row:
+    __slots__ = ("mean", "low", "high", "n")
+
+    def __init__(self, mean, low, high, n):
+        self.mean, self.low, self.high, self.n = mean, low, high, n

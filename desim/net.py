@@ -1,0 +1,319 @@
+"""The run-time form of a scenario's net: mutable per-run state objects with ``__slots__``.
+
+A :class:`fluid.scenario.Scenario` is frozen and shared; one run needs counters, queues and
+random streams of its own. :func:`build_net` makes them: a :class:`PlaceState` per job place (with
+one FIFO of available jobs, or one per output transition when the place routes by preselection),
+a :class:`PoolState` per pool, a :class:`TransitionState` per transition and a
+:class:`SourceState` per source. All times are in the scenario's time unit.
+
+Transitions get a global rank that respects every priority list (a linear extension of the local
+orders): when several transitions could fire at the same instant, the engine fires the lowest
+rank first, one firing at a time, so a higher-priority transition never loses a token to a lower
+one at the same instant.
+"""
+
+from __future__ import annotations
+
+import heapq
+import math
+from collections import deque
+from typing import Iterator
+
+import numpy as np
+
+from fluid.scenario import Scenario
+
+from .streams import block_draws, stream_rng, uniform_draws
+
+__all__ = ["Fifo", "PlaceState", "PoolState", "TransitionState", "SourceState", "Net", "build_net",
+           "transition_order"]
+
+INF = math.inf
+
+
+class Fifo:
+    """Available jobs of a place, oldest first (by the time they became available).
+
+    Entries are ``(deadline, stamp, job)`` tuples; an entry is stale when ``job.stamp != stamp``
+    (the job abandoned). Stale entries are skipped when met and purged when they outnumber the
+    live ones by more than two to one."""
+
+    __slots__ = ("dq", "live", "dead", "place", "mask")
+
+    def __init__(self, place: "PlaceState", mask: int):
+        self.dq: deque = deque()
+        self.live = 0
+        self.dead = 0
+        self.place = place
+        self.mask = mask  # bits of the transitions that take from this FIFO
+
+    def compact(self) -> None:
+        self.dq = deque(e for e in self.dq if e[2].stamp == e[1])
+        self.dead = 0
+
+
+class PlaceState:
+    """A job place during a run: FIFOs, the patience heap and cumulative counters."""
+
+    __slots__ = (
+        "name", "hold", "route_cum", "route_draw", "fifos", "fifo", "patience", "abandon_to",
+        "heap", "heap_dead", "armed_at", "gen",
+        "n_avail", "n_hold", "area", "last", "became", "left", "wait_sum", "abandoned",
+        "within", "taken_within", "waits_taken", "waits_abandoned",
+    )
+
+    def __init__(self, name: str):
+        self.name = name
+        self.hold: Iterator[float] | None = None  # hold draws, or None (available at once)
+        self.route_cum: list[float] | None = None  # cumulative route proportions (all but last)
+        self.route_draw: Iterator[float] | None = None
+        self.fifos: list[Fifo] = []
+        self.fifo: Fifo | None = None  # the single FIFO of a place without route
+        self.patience: Iterator[float] | None = None
+        self.abandon_to: PlaceState | None = None
+        self.heap: list | None = None  # (deadline, stamp, job), lazily deleted
+        self.heap_dead = 0
+        self.armed_at = INF  # time of the one patience timer that counts
+        self.gen = 0  # generation of that timer; older timers see a different number
+        self.n_avail = 0
+        self.n_hold = 0
+        self.area = 0.0  # ∫ n_avail dt from 0 to `last`
+        self.last = 0.0
+        self.became = 0
+        self.left = 0
+        self.wait_sum = 0.0
+        self.abandoned = 0
+        self.within = -1.0  # service-level threshold; negative = no target
+        self.taken_within = 0
+        self.waits_taken: list[float] | None = None
+        self.waits_abandoned: list[float] | None = None
+
+    def compact_heap(self) -> None:
+        self.heap = [e for e in self.heap if e[2].stamp == e[1]]
+        heapq.heapify(self.heap)
+        self.heap_dead = 0
+
+    def area_at(self, now: float) -> float:
+        return self.area + self.n_avail * (now - self.last)
+
+
+class PoolState:
+    """A pool during a run. ``present`` agents are on duty (``target`` scheduled plus ``owed``
+    busy agents that leave as they finish after a cut); ``avail`` of them are idle."""
+
+    __slots__ = ("name", "avail", "target", "owed", "present", "area_avail", "last",
+                 "area_present", "plast", "mask", "schedule")
+
+    def __init__(self, name: str, staff: int, schedule):
+        self.name = name
+        self.avail = staff
+        self.target = staff
+        self.owed = 0
+        self.present = staff
+        self.area_avail = 0.0
+        self.last = 0.0
+        self.area_present = 0.0
+        self.plast = 0.0
+        self.mask = 0
+        self.schedule = schedule
+
+    def areas_at(self, now: float) -> tuple[float, float]:
+        """(∫ busy dt, ∫ on-duty dt) from 0 to ``now``."""
+        present = self.area_present + self.present * (now - self.plast)
+        avail = self.area_avail + self.avail * (now - self.last)
+        return present - avail, present
+
+
+class TransitionState:
+    __slots__ = ("name", "bit", "fifo", "takes", "out_place", "gives", "firings")
+
+    def __init__(self, name: str, bit: int):
+        self.name = name
+        self.bit = bit
+        self.fifo: Fifo | None = None
+        self.takes: tuple = ()  # ((PoolState, weight), ...)
+        self.out_place: PlaceState | None = None
+        self.gives: tuple = ()  # ((PoolState, weight), ...)
+        self.firings = 0
+
+
+class SourceState:
+    """Arrivals of one source and the cumulative counts of its jobs."""
+
+    __slots__ = ("name", "place", "gaps", "rate", "step", "rates", "interval", "trace", "trace_i",
+                 "arrived", "completed", "abandoned", "wait_sum")
+
+    def __init__(self, name: str, place: PlaceState):
+        self.name = name
+        self.place = place
+        self.gaps: Iterator[float] | None = None  # standard exponential draws
+        self.rate = 0.0
+        self.step = 0.0
+        self.rates: tuple[float, ...] = ()
+        self.interval = 0
+        self.trace: tuple[float, ...] = ()
+        self.trace_i = 0
+        self.arrived = 0
+        self.completed = 0
+        self.abandoned = 0
+        self.wait_sum = 0.0
+
+    def next_time(self, now: float) -> float:
+        """Time of the arrival after one at ``now`` (inf when there is none)."""
+        if self.rates:
+            return self._next_profile(now)
+        if self.gaps is not None:
+            return now + next(self.gaps) / self.rate
+        i = self.trace_i
+        if i >= len(self.trace):
+            return INF
+        self.trace_i = i + 1
+        return self.trace[i]
+
+    def _next_profile(self, t: float) -> float:
+        # A Poisson process with a piecewise-constant rate, generated exactly: an exponential gap
+        # at the current interval's rate; if it overshoots the interval's end, restart from the
+        # boundary with the next rate (valid because the exponential is memoryless).
+        rates, n, i = self.rates, len(self.rates), self.interval
+        while i < n - 1:
+            end = (i + 1) * self.step
+            r = rates[i]
+            if r > 0:
+                c = t + next(self.gaps) / r
+                if c < end:
+                    self.interval = i
+                    return c
+            t, i = max(t, end), i + 1
+        self.interval = i
+        r = rates[-1]
+        return t + next(self.gaps) / r if r > 0 else INF
+
+
+class Net:
+    """All run-time state of one run's net, in declaration order."""
+
+    __slots__ = ("places", "pools", "transitions", "sources", "scenario")
+
+    def __init__(self, scenario, places, pools, transitions, sources):
+        self.scenario = scenario
+        self.places: dict[str, PlaceState] = places
+        self.pools: dict[str, PoolState] = pools
+        self.transitions: list[TransitionState] = transitions  # by rank
+        self.sources: dict[str, SourceState] = sources
+
+
+def transition_order(scenario: Scenario) -> list[str]:
+    """Transitions in a global order that extends every priority list (places first, then pools,
+    each in declaration order; a constraint that would contradict an earlier one is dropped).
+    Where the priorities leave a choice, transitions that take no agents come first (they only
+    move jobs on and hand agents back, so every token of an instant is in place before agents
+    are allocated), then declaration order."""
+    names = list(scenario.transitions)
+    index = {
+        n: (any(p in scenario.pools for p in t.inputs), i)
+        for i, (n, t) in enumerate(scenario.transitions.items())
+    }
+    after: dict[str, set[str]] = {n: set() for n in names}
+
+    def reaches(a: str, b: str) -> bool:
+        stack, seen = [a], {a}
+        while stack:
+            x = stack.pop()
+            if x == b:
+                return True
+            for y in after[x] - seen:
+                seen.add(y)
+                stack.append(y)
+        return False
+
+    for node in (*scenario.places.values(), *scenario.pools.values()):
+        prio = node.priority
+        for hi, lo in zip(prio, prio[1:]):
+            if not reaches(lo, hi):
+                after[hi].add(lo)
+    indeg = {n: 0 for n in names}
+    for n in names:
+        for m in after[n]:
+            indeg[m] += 1
+    ready = [(index[n], n) for n in names if indeg[n] == 0]
+    heapq.heapify(ready)
+    order = []
+    while ready:
+        _, n = heapq.heappop(ready)
+        order.append(n)
+        for m in after[n]:
+            indeg[m] -= 1
+            if indeg[m] == 0:
+                heapq.heappush(ready, (index[m], m))
+    return order
+
+
+def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: bool = False,
+              block: int = 1024) -> Net:
+    """Fresh run-time state for replication ``replication`` of ``scenario`` with base ``seed``."""
+    places: dict[str, PlaceState] = {}
+    for p in scenario.places.values():
+        ps = PlaceState(p.name)
+        if p.hold is not None:
+            ps.hold = block_draws(p.hold.sample, stream_rng(seed, replication, "hold", p.name), block)
+        if p.patience is not None:
+            ps.patience = block_draws(
+                p.patience.sample, stream_rng(seed, replication, "patience", p.name), block)
+            ps.heap = []
+        target = scenario.targets.service.get(p.name)
+        if target is not None:
+            ps.within = target.within
+        if record_waits:
+            ps.waits_taken, ps.waits_abandoned = [], []
+        places[p.name] = ps
+    for p in scenario.places.values():
+        if p.abandon_to is not None:
+            places[p.name].abandon_to = places[p.abandon_to]
+
+    pools = {r.name: PoolState(r.name, r.staff_at(0.0), r.schedule) for r in scenario.pools.values()}
+    order = transition_order(scenario)
+    bit = {name: 1 << i for i, name in enumerate(order)}
+    trans = {name: TransitionState(name, bit[name]) for name in order}
+
+    for p in scenario.places.values():
+        ps = places[p.name]
+        outs = scenario.outputs_of(p.name)
+        if p.route is not None:
+            chosen = list(p.route)
+            ps.fifos = [Fifo(ps, bit[t]) for t in chosen]
+            ps.route_cum = list(np.cumsum([p.route[t] for t in chosen])[:-1].tolist())
+            ps.route_draw = uniform_draws(stream_rng(seed, replication, "route", p.name), block)
+            for t, f in zip(chosen, ps.fifos):
+                trans[t].fifo = f
+        else:
+            mask = 0
+            for t in outs:
+                mask |= bit[t]
+            ps.fifo = Fifo(ps, mask)
+            ps.fifos = [ps.fifo]
+            for t in outs:
+                trans[t].fifo = ps.fifo
+    for r in scenario.pools.values():
+        for t in scenario.outputs_of(r.name):
+            pools[r.name].mask |= bit[t]
+    for t in scenario.transitions.values():
+        ts = trans[t.name]
+        ts.takes = tuple((pools[n], w) for n, w in t.inputs.items() if n in pools)
+        ts.gives = tuple((pools[n], w) for n, w in t.outputs.items() if n in pools)
+        out = scenario.job_output(t.name)
+        ts.out_place = places[out] if out is not None else None
+
+    sources: dict[str, SourceState] = {}
+    for s in scenario.sources.values():
+        ss = SourceState(s.name, places[s.into])
+        if s.trace is not None:
+            ss.trace = tuple(s.trace)
+        else:
+            rng = stream_rng(seed, replication, "arrivals", s.name)
+            ss.gaps = block_draws(lambda g, n: g.standard_exponential(n), rng, block)
+            if s.profile is not None:
+                ss.step, ss.rates = s.profile.step, tuple(s.profile.rates)
+            else:
+                ss.rate = s.rate
+        sources[s.name] = ss
+    return Net(scenario, places, pools, [trans[n] for n in order], sources)

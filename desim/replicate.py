@@ -1,0 +1,101 @@
+"""Independent replications, run in parallel on any ``concurrent.futures`` executor.
+
+Replication r of a run with base seed S draws every stream from ``SeedSequence(S, spawn_key=(r,
+...))`` (see :mod:`desim.streams`), so a replication's numbers depend only on (scenario, S, r):
+identical whichever process runs it and however many workers there are. Results are combined in
+replication order.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import os
+from typing import Callable
+
+from fluid.scenario import Scenario
+
+from .results import SimulationResult, summarize
+from .run import RunResult, check_settings, run_replication
+
+__all__ = ["replicate", "run_replications"]
+
+
+def _collect(futures: list, progress: Callable[[], object] | None) -> list[RunResult]:
+    try:
+        if progress is not None:
+            if all(isinstance(f, cf.Future) for f in futures):
+                for f in cf.as_completed(futures):
+                    f.result()  # raise at once if a replication failed
+                    progress()
+            else:  # futures of another kind (e.g. Dask's): report in order
+                for f in futures:
+                    f.result()
+                    progress()
+        return [f.result() for f in futures]
+    except BaseException:
+        for f in futures:
+            f.cancel()
+        raise
+
+
+def run_replications(scenario: Scenario, replications: range | list[int], *,
+                     executor: cf.Executor | None = None, workers: int | None = None,
+                     progress: Callable[[], object] | None = None, **settings) -> list[RunResult]:
+    """Run the given replication indices of ``scenario`` (``settings`` are passed to
+    :func:`desim.run_replication`) and return their results in the order given.
+
+    ``executor``: any executor with ``submit`` (e.g. ``dask.distributed.Client.get_executor()``);
+    otherwise a local process pool with ``workers`` processes (None: one per CPU, at most one per
+    replication; 1: run here, in this process). ``progress()`` is called once per finished
+    replication."""
+    reps = list(replications)
+    if executor is None:
+        if workers is None:
+            workers = min(len(reps), os.cpu_count() or 1)
+        if workers < 1:
+            raise ValueError(f"workers must be at least 1 (got {workers!r})")
+        if workers == 1 or len(reps) <= 1:
+            out = []
+            for r in reps:
+                out.append(run_replication(scenario, r, **settings))
+                if progress is not None:
+                    progress()
+            return out
+        with cf.ProcessPoolExecutor(max_workers=min(workers, len(reps))) as pool:
+            return _collect([pool.submit(run_replication, scenario, r, **settings) for r in reps],
+                            progress)
+    return _collect([executor.submit(run_replication, scenario, r, **settings) for r in reps],
+                    progress)
+
+
+def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | None = None,
+              warmup: float | None = None, seed: int | None = None,
+              executor: cf.Executor | None = None, workers: int | None = None,
+              interval: float | None = None, max_jobs: int | None = None,
+              progress: Callable[[], object] | None = None,
+              record_waits: bool = False) -> SimulationResult:
+    """Simulate ``reps`` independent replications of ``scenario`` over [0, horizon], measure each
+    over [warmup, horizon] and return estimates with 95 % Student t intervals.
+
+    Times are in the scenario's time unit; any setting left None comes from ``scenario.run``.
+    ``executor``/``workers``: where replications run (see :func:`run_replications`); the numbers
+    do not depend on it. ``interval``: also build per-interval tables of that length (from 0).
+    ``max_jobs``: jobs allowed inside a run at once before it is stopped and reported unstable
+    (default :data:`desim.run.DEFAULT_MAX_JOBS`). ``progress``: called once per finished
+    replication. ``record_waits``: keep every wait in the window (``result.runs[i].waits``).
+    """
+    run = scenario.run
+    reps = run.replications if reps is None else int(reps)
+    if reps < 1:
+        raise ValueError(f"reps must be at least 1 (got {reps!r})")
+    settings = dict(
+        horizon=float(run.horizon if horizon is None else horizon),
+        warmup=float(run.warmup if warmup is None else warmup),
+        seed=int(run.seed if seed is None else seed),
+        interval=interval, max_jobs=max_jobs, record_waits=record_waits,
+    )
+    check_settings(settings["horizon"], settings["warmup"], interval, max_jobs)
+    runs = run_replications(scenario, range(reps), executor=executor, workers=workers,
+                            progress=progress, **settings)
+    return summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
+                     steady_state=not scenario.has_time_variation)

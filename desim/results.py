@@ -1,0 +1,207 @@
+"""The result of a set of replications: estimates with confidence intervals, tables, warnings.
+
+Built by :func:`desim.replicate` from the per-replication :class:`~desim.run.RunResult` objects,
+kept in ``runs`` in replication order. Every figure is an :class:`~desim.estimate.Estimate` over the
+replications (mean and a 95 % Student t interval on per-replication values). Times are in the
+scenario's ``time_unit``; rates per that unit.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .estimate import Estimate
+from .run import RunResult
+from .warmup import mser5
+
+__all__ = ["SimulationResult", "WarmupSuggestion", "summarize"]
+
+#: Metrics reported (as estimates) per kind of node; per-replication values hold a few more.
+PLACE_METRICS = ("wait", "abandoned", "queue", "served_within")
+SOURCE_METRICS = ("arrivals", "completed", "abandoned", "abandoned_share", "total_wait")
+
+
+@dataclass(frozen=True)
+class WarmupSuggestion:
+    """MSER-5 on the total-queue series. ``time``: truncation suggested by MSER-5 on the series
+    averaged over the replications (less noisy than any one replication); ``per_replication``: the
+    truncation found in each replication; ``median``: their median; ``late_minimum``: replications
+    whose MSER minimum lay in the second half of the run (too short to judge); ``ensemble_late``:
+    the same for the averaged series; ``steady_state``: False when the scenario varies in time
+    (profiles, traces, schedules), where a warm-up in the MSER sense does not apply and no
+    warning is given. Times in the scenario's time unit."""
+
+    time: float
+    per_replication: tuple[float, ...]
+    median: float
+    late_minimum: int
+    ensemble_late: bool
+    sample_step: float
+    steady_state: bool = True
+
+    def to_json(self) -> dict:
+        return {"time": self.time if math.isfinite(self.time) else None, "median": self.median,
+                "per_replication": list(self.per_replication),
+                "late_minimum": self.late_minimum, "ensemble_late": self.ensemble_late,
+                "sample_step": self.sample_step, "steady_state": self.steady_state}
+
+
+@dataclass(frozen=True)
+class SimulationResult:
+    """Estimates over ``replications`` runs of scenario ``scenario_name``, each over [0, horizon]
+    measured over [warmup, horizon], base seed ``seed``.
+
+    ``transitions`` {t: {"rate"}}, ``places`` {p: {"wait", "abandoned", "queue",
+    "served_within" (places with a target only)}}, ``pools`` {r: {"busy"}}, ``sources``
+    {s: {"arrivals", "completed", "abandoned", "abandoned_share", "total_wait"}}: each value an
+    :class:`Estimate`. ``intervals``: tidy per-interval table (columns interval, start, end,
+    metric, name, mean, low, high, n) or None. ``unstable``: per-replication flags of runs stopped
+    at the job limit; ``unstable_replications`` their count. ``runs``: the per-replication results.
+    """
+
+    scenario_name: str
+    time_unit: str
+    replications: int
+    horizon: float
+    warmup: float
+    seed: int
+    transitions: dict
+    places: dict
+    pools: dict
+    sources: dict
+    intervals: pd.DataFrame | None
+    warmup_suggestion: WarmupSuggestion
+    warnings: list
+    unstable: tuple
+    runs: tuple = field(repr=False)
+
+    @property
+    def unstable_replications(self) -> int:
+        return int(sum(self.unstable))
+
+    def raw(self, kind: str, name: str, metric: str) -> np.ndarray:
+        """Per-replication values of one figure, in replication order (nan where unmeasured)."""
+        return np.array([r.values().get((kind, name, metric), math.nan) for r in self.runs])
+
+    def per_replication(self) -> pd.DataFrame:
+        """Tidy table of every per-replication figure: replication, kind, name, metric, value."""
+        rows = [(r.replication, k, n, m, v) for r in self.runs for (k, n, m), v in r.values().items()]
+        return pd.DataFrame(rows, columns=["replication", "kind", "name", "metric", "value"])
+
+    def to_frame(self) -> pd.DataFrame:
+        """Tidy table: kind, name, metric, mean, low, high, n."""
+        rows = []
+        for kind, table in (("transition", self.transitions), ("place", self.places),
+                            ("pool", self.pools), ("source", self.sources)):
+            for name, metrics in table.items():
+                for metric, est in metrics.items():
+                    rows.append((kind, name, metric, est.mean, est.low, est.high, est.n))
+        return pd.DataFrame(rows, columns=["kind", "name", "metric", "mean", "low", "high", "n"])
+
+    def to_json(self) -> dict:
+        """The ``simulate --json`` document (design.md §5), with more keys; nan becomes null."""
+
+        def table(t: dict) -> dict:
+            return {n: {m: e.to_json() for m, e in ms.items()} for n, ms in t.items()}
+
+        intervals = None
+        if self.intervals is not None:
+            intervals = [
+                {k: (None if isinstance(v, float) and not math.isfinite(v) else v)
+                 for k, v in rec.items()}
+                for rec in self.intervals.to_dict("records")
+            ]
+        return {
+            "scenario": self.scenario_name,
+            "time_unit": self.time_unit,
+            "replications": self.replications,
+            "horizon": self.horizon,
+            "warmup": self.warmup,
+            "seed": self.seed,
+            "transitions": table(self.transitions),
+            "places": table(self.places),
+            "pools": table(self.pools),
+            "sources": table(self.sources),
+            "intervals": intervals,
+            "warmup_suggestion": self.warmup_suggestion.to_json(),
+            "unstable_replications": self.unstable_replications,
+            "warnings": list(self.warnings),
+        }
+
+
+def _estimates(runs: list[RunResult], kind_table: str, metrics: tuple[str, ...] | None) -> dict:
+    out: dict = {}
+    names = getattr(runs[0], kind_table)
+    for name, first in names.items():
+        wanted = [m for m in (metrics or first) if m in first]
+        out[name] = {m: Estimate.from_values([getattr(r, kind_table)[name][m] for r in runs])
+                     for m in wanted}
+    return out
+
+
+def _interval_estimates(runs: list[RunResult]) -> pd.DataFrame | None:
+    if runs[0].intervals is None:
+        return None
+    frame = pd.concat([r.intervals.assign(replication=r.replication) for r in runs])
+    rows = []
+    for (i, metric, name), g in frame.groupby(["interval", "metric", "name"], sort=False):
+        est = Estimate.from_values(g["value"])
+        rows.append((i, g["start"].iloc[0], g["end"].max(), metric, name,
+                     est.mean, est.low, est.high, est.n))
+    out = pd.DataFrame(rows, columns=["interval", "start", "end", "metric", "name",
+                                      "mean", "low", "high", "n"])
+    return out.sort_values(["interval"], kind="stable").reset_index(drop=True)
+
+
+def _warmup_suggestion(runs: list[RunResult], steady_state: bool) -> WarmupSuggestion:
+    step = runs[0].sample_step
+    per = tuple(r.mser.truncation * step for r in runs)
+    full = [r.queue_series for r in runs if not r.unstable]
+    if full:
+        n = min(len(s) for s in full)
+        ensemble = mser5(np.mean([s[:n] for s in full], axis=0))
+        time, late = ensemble.truncation * step, ensemble.late_minimum
+    else:
+        time, late = math.nan, False
+    return WarmupSuggestion(time=time, per_replication=per, median=float(np.median(per)),
+                            late_minimum=sum(r.mser.late_minimum for r in runs),
+                            ensemble_late=late, sample_step=step, steady_state=steady_state)
+
+
+def summarize(runs: list[RunResult], *, scenario_name: str, time_unit: str,
+              steady_state: bool = True) -> SimulationResult:
+    """Combine per-replication results (in replication order) into a :class:`SimulationResult`.
+    ``steady_state``: the scenario has constant rates and staff, so MSER-5 warnings apply."""
+    first = runs[0]
+    suggestion = _warmup_suggestion(runs, steady_state)
+    warnings: list[str] = []
+    unstable = tuple(r.unstable for r in runs)
+    if any(unstable):
+        k = sum(unstable)
+        warnings.append(
+            f"{k} of {len(runs)} replications were stopped early because the jobs inside exceeded "
+            "the job limit (inflow above capacity?); their figures come from the partial runs")
+    late = suggestion.late_minimum
+    # (a day with profiles or shifts has no steady state to warm up to: no warning then)
+    if steady_state and (suggestion.ensemble_late or (late and 2 * late >= len(runs))):
+        warnings.append(
+            f"MSER-5 finds no reliable end of the warm-up ({late} of {len(runs)} replications have "
+            "their minimum in the second half): the queue may still be drifting; run longer")
+    elif steady_state and math.isfinite(suggestion.time) and first.warmup < suggestion.time:
+        warnings.append(
+            f"the warm-up used ({first.warmup:g}) looks too short: MSER-5 suggests discarding the "
+            f"first {suggestion.time:g} time units")
+    return SimulationResult(
+        scenario_name=scenario_name, time_unit=time_unit, replications=len(runs),
+        horizon=first.horizon, warmup=first.warmup, seed=first.seed,
+        transitions=_estimates(runs, "transitions", ("rate",)),
+        places=_estimates(runs, "places", PLACE_METRICS),
+        pools=_estimates(runs, "pools", ("busy",)),
+        sources=_estimates(runs, "sources", SOURCE_METRICS),
+        intervals=_interval_estimates(runs),
+        warmup_suggestion=suggestion, warnings=warnings, unstable=unstable, runs=tuple(runs),
+    )

@@ -1,0 +1,304 @@
+"""One replication: build the net, run the engine, turn its counters into statistics.
+
+Statistics are taken over the window [warmup, end] (end = horizon, or the time an unstable run
+was stopped) from cumulative counters snapshotted at the warm-up and at the end, so nothing per
+job is kept unless asked for (design.md §4.2):
+
+* place ``wait``: mean time from becoming available to leaving, over tokens that left in the window;
+* place ``served_within`` (places with a service target): taken within ``within`` / became
+  available; ``abandoned``: abandoned / became available; ``queue``: time-average number
+  available and waiting;
+* transition ``rate``: firings per time unit;
+* pool ``busy``: busy agent-time / on-duty agent-time (with a fixed staff: the time-average
+  fraction of staff not available);
+* source ``arrivals``, ``completed``, ``abandoned`` (counts in the window), ``abandoned_share``
+  (abandoned / jobs that ended in the window), ``total_wait`` (mean total waiting time of the jobs
+  that ended in the window, over all the places they waited in).
+
+All times are in the scenario's time unit.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from fluid.scenario import Scenario
+
+from .engine import Engine
+from .net import Net, build_net
+from .warmup import MserResult, mser5
+
+__all__ = ["RunResult", "run_replication", "DEFAULT_MAX_JOBS", "DEFAULT_SAMPLES", "check_settings",
+           "waiting_places"]
+
+#: Jobs allowed inside at once before a run is declared unstable (about 0.3 GB per run).
+DEFAULT_MAX_JOBS = 1_000_000
+#: Points of the total-queue series per run (the MSER-5 input).
+DEFAULT_SAMPLES = 1000
+
+_PLACE_FIELDS = ("became", "left", "wait_sum", "abandoned", "taken_within", "area")
+_SOURCE_FIELDS = ("arrived", "completed", "abandoned", "wait_sum")
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """Figures of one replication. Metric dictionaries map a node name to ``{metric: value}``
+    (nan where there was nothing to measure). ``end`` is when the run stopped: the horizon, or
+    earlier when ``unstable`` (too many jobs inside). ``totals`` are whole-run counts
+    (arrivals, completed, abandoned, inside). ``queue_series`` is the time-average total number
+    of jobs available and waiting over each ``sample_step``; ``mser`` its MSER-5 analysis.
+    ``intervals`` (when asked for) is a tidy table with columns interval, start, end, metric,
+    name, value. ``waits`` (when asked for) maps a place to ``{"taken": array, "abandoned":
+    array}`` of the waits of tokens that left in the window. ``jobs`` (when asked for) lists job
+    records ``(id, source, arrival, end, outcome)``. ``events``: arrivals + ends of holds +
+    firings + abandonments over the whole run."""
+
+    replication: int
+    seed: int
+    horizon: float
+    warmup: float
+    end: float
+    unstable: bool
+    transitions: dict
+    places: dict
+    pools: dict
+    sources: dict
+    totals: dict
+    queue_series: np.ndarray = field(repr=False)
+    sample_step: float
+    mser: MserResult = field(repr=False)
+    intervals: pd.DataFrame | None = field(default=None, repr=False)
+    waits: dict | None = field(default=None, repr=False)
+    jobs: list | None = field(default=None, repr=False)
+    events: int = 0
+
+    def values(self) -> dict[tuple[str, str, str], float]:
+        """Every figure as ``{(kind, name, metric): value}`` with kind transition, place, pool or
+        source."""
+        out = {}
+        for kind, table in (("transition", self.transitions), ("place", self.places),
+                            ("pool", self.pools), ("source", self.sources)):
+            for name, metrics in table.items():
+                for metric, value in metrics.items():
+                    out[(kind, name, metric)] = value
+        return out
+
+
+def check_settings(horizon: float, warmup: float, interval: float | None = None,
+                   max_jobs: int | None = None) -> None:
+    """Raise ValueError for settings no run can use."""
+    if not (isinstance(horizon, (int, float)) and math.isfinite(horizon) and horizon > 0):
+        raise ValueError(f"horizon must be a positive number (got {horizon!r})")
+    if not (isinstance(warmup, (int, float)) and 0 <= warmup < horizon):
+        raise ValueError(f"warmup must be >= 0 and below the horizon {horizon:g} (got {warmup!r})")
+    if interval is not None and not (math.isfinite(interval) and interval > 0):
+        raise ValueError(f"interval must be a positive number (got {interval!r})")
+    if max_jobs is not None and max_jobs < 1:
+        raise ValueError(f"max_jobs must be at least 1 (got {max_jobs!r})")
+
+
+def waiting_places(scenario: Scenario) -> tuple[str, ...]:
+    """Places where jobs wait for staff or may abandon: a patience, a service target, or an output
+    transition that takes agents from a pool."""
+    out = []
+    for p in scenario.places.values():
+        takes_pool = any(any(n in scenario.pools for n in scenario.transitions[t].inputs)
+                         for t in scenario.outputs_of(p.name))
+        if p.patience is not None or p.name in scenario.targets.service or takes_pool:
+            out.append(p.name)
+    return tuple(out)
+
+
+def _snapshot(net: Net, now: float) -> np.ndarray:
+    """Cumulative counters of every node at ``now``, in a fixed layout (see :func:`_split`)."""
+    values: list[float] = []
+    for p in net.places.values():
+        values += (p.became, p.left, p.wait_sum, p.abandoned, p.taken_within, p.area_at(now))
+    for r in net.pools.values():
+        values += r.areas_at(now)
+    values += (t.firings for t in net.transitions)
+    for s in net.sources.values():
+        values += (s.arrived, s.completed, s.abandoned, s.wait_sum)
+    return np.array(values, dtype=float)
+
+
+def _split(net: Net, snap: np.ndarray) -> tuple[dict, dict, dict, dict]:
+    snap = snap.tolist()  # plain floats in the results, not numpy scalars
+    i = 0
+    places, pools, trans, sources = {}, {}, {}, {}
+    for name in net.places:
+        places[name] = dict(zip(_PLACE_FIELDS, snap[i:i + 6]))
+        i += 6
+    for name in net.pools:
+        pools[name] = {"busy_area": snap[i], "duty_area": snap[i + 1]}
+        i += 2
+    for t in net.transitions:
+        trans[t.name] = snap[i]
+        i += 1
+    for name in net.sources:
+        sources[name] = dict(zip(_SOURCE_FIELDS, snap[i:i + 4]))
+        i += 4
+    return places, pools, trans, sources
+
+
+def _ratio(a: float, b: float) -> float:
+    return a / b if b > 0 else math.nan
+
+
+def _window_stats(scenario: Scenario, net: Net, delta: np.ndarray, length: float):
+    places_d, pools_d, trans_d, sources_d = _split(net, delta)
+    transitions = {
+        t: {"rate": _ratio(trans_d[t], length), "firings": int(trans_d[t])}
+        for t in scenario.transitions
+    }
+    places = {}
+    for name, d in places_d.items():
+        m = {
+            "wait": _ratio(d["wait_sum"], d["left"]),
+            "abandoned": _ratio(d["abandoned"], d["became"]),
+            "queue": _ratio(d["area"], length),
+        }
+        if name in scenario.targets.service:
+            m["served_within"] = _ratio(d["taken_within"], d["became"])
+        m.update(became=int(d["became"]), left=int(d["left"]), abandoned_count=int(d["abandoned"]))
+        places[name] = m
+    pools = {name: {"busy": _ratio(d["busy_area"], d["duty_area"])} for name, d in pools_d.items()}
+    sources = {}
+    for name, d in sources_d.items():
+        ended = d["completed"] + d["abandoned"]
+        sources[name] = {
+            "arrivals": int(d["arrived"]),
+            "completed": int(d["completed"]),
+            "abandoned": int(d["abandoned"]),
+            "abandoned_share": _ratio(d["abandoned"], ended),
+            "total_wait": _ratio(d["wait_sum"], ended),
+        }
+    return transitions, places, pools, sources
+
+
+def _interval_table(scenario: Scenario, net: Net, times: list[float], snaps: list[np.ndarray]):
+    targets = tuple(scenario.targets.service)
+    waiting = waiting_places(scenario)
+    rows = []
+    for i in range(len(times) - 1):
+        start, end = times[i], times[i + 1]
+        places_d, _, _, sources_d = _split(net, snaps[i + 1] - snaps[i])
+        length = end - start
+        arrivals = sum(d["arrived"] for d in sources_d.values())
+        completed = sum(d["completed"] for d in sources_d.values())
+        abandoned = sum(d["abandoned"] for d in sources_d.values())
+        rows += [(i, start, end, "arrivals", "", arrivals),
+                 (i, start, end, "completed", "", completed),
+                 (i, start, end, "abandoned", "", abandoned)]
+        for p in targets:
+            d = places_d[p]
+            rows.append((i, start, end, "service_level", p, _ratio(d["taken_within"], d["became"])))
+        for p in waiting:
+            rows.append((i, start, end, "queue", p, _ratio(places_d[p]["area"], length)))
+    return pd.DataFrame(rows, columns=["interval", "start", "end", "metric", "name", "value"])
+
+
+def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float | None = None,
+                    warmup: float | None = None, seed: int | None = None,
+                    interval: float | None = None, max_jobs: int | None = None,
+                    record_waits: bool = False, record_jobs: bool = False,
+                    trace: list | None = None, samples: int = DEFAULT_SAMPLES) -> RunResult:
+    """Run replication ``replication`` of ``scenario`` over [0, horizon] and measure it over
+    [warmup, horizon] (times in the scenario's time unit; None takes ``scenario.run``).
+
+    ``interval``: also tabulate each interval of that length (from time 0). ``max_jobs``: jobs
+    allowed inside at once (default :data:`DEFAULT_MAX_JOBS`); beyond it the run stops there and is
+    flagged unstable. ``record_waits`` keeps per-token waits, ``record_jobs`` the job records.
+    ``trace``: a list that receives ``(time, what, name, job_id)`` for every arrival, firing and
+    abandonment (see :class:`desim.engine.Engine`). Raises
+    :class:`desim.engine.ConservationError` if the run's job count does not balance.
+    """
+    run = scenario.run
+    horizon = float(run.horizon if horizon is None else horizon)
+    warmup = float(run.warmup if warmup is None else warmup)
+    seed = int(run.seed if seed is None else seed)
+    max_jobs = DEFAULT_MAX_JOBS if max_jobs is None else int(max_jobs)
+    check_settings(horizon, warmup, interval, max_jobs)
+
+    net = build_net(scenario, seed, replication, record_waits=record_waits)
+    jobs: list | None = [] if record_jobs else None
+    engine = Engine(net, max_jobs=max_jobs, trace=trace, records=jobs, warmup=warmup)
+    engine.start()
+
+    snaps: dict[str, np.ndarray] = {}
+    if warmup == 0:
+        snaps["warmup"] = _snapshot(net, 0.0)
+    else:
+        engine.at(warmup, lambda e: snaps.__setitem__("warmup", _snapshot(net, e.env.now)))
+
+    step = horizon / samples
+    areas = [0.0]
+
+    def total_area(now: float) -> float:
+        return sum(p.area_at(now) for p in net.places.values())
+
+    def sample(e: Engine) -> None:
+        areas.append(total_area(e.env.now))
+        k = len(areas)
+        if k < samples:  # the last point, at the horizon, is taken after the run
+            e.at(k * step, sample)
+
+    if samples > 1:
+        engine.at(step, sample)
+
+    times: list[float] = []
+    interval_snaps: list[np.ndarray] = []
+    if interval is not None:
+        def boundary(e: Engine) -> None:
+            now = float(e.env.now)
+            times.append(now)
+            interval_snaps.append(_snapshot(net, now))
+            nxt = len(times) * interval
+            if nxt < horizon * (1 - 1e-12):
+                e.at(nxt, boundary)
+
+        boundary(engine)
+
+    end = engine.run(horizon)
+    final = _snapshot(net, end)
+    engine.check_conservation()
+
+    length = end - warmup
+    if "warmup" in snaps and length > 0:
+        stats = _window_stats(scenario, net, final - snaps["warmup"], length)
+    else:  # stopped before the window opened: nothing to measure
+        stats = _window_stats(scenario, net, np.zeros_like(final), 0.0)
+    transitions, places, pools, sources = stats
+
+    intervals = None
+    if interval is not None:
+        if times[-1] < end:
+            times.append(end)
+            interval_snaps.append(final)
+        intervals = _interval_table(scenario, net, times, interval_snaps)
+
+    if not engine.unstable:
+        areas.append(total_area(end))
+    series = np.diff(np.array(areas)) / step
+
+    waits = None
+    if record_waits:
+        waits = {p.name: {"taken": np.array(p.waits_taken), "abandoned": np.array(p.waits_abandoned)}
+                 for p in net.places.values()}
+    arrivals = sum(s.arrived for s in net.sources.values())
+    firings = sum(t.firings for t in net.transitions)
+    holds = sum(p.became for p in net.places.values() if p.hold is not None)
+    events = arrivals + firings + engine.abandoned + holds
+    return RunResult(
+        replication=replication, seed=seed, horizon=horizon, warmup=warmup, end=end,
+        unstable=engine.unstable, transitions=transitions, places=places, pools=pools,
+        sources=sources,
+        totals={"arrivals": arrivals, "completed": engine.completed,
+                "abandoned": engine.abandoned, "inside": engine.inside()},
+        queue_series=series, sample_step=step, mser=mser5(series), intervals=intervals,
+        waits=waits, jobs=jobs, events=events,
+    )
