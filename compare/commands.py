@@ -65,7 +65,7 @@ def fluid(args) -> Outcome:
     if args.dt is not None and args.dt <= 0:
         raise InputError(f"fluidgap fluid: --dt must be > 0 (got {args.dt:g})")
     result = throughput(s, method=args.method, dt=args.dt)
-    doc = result.to_json()
+    doc = result.to_dict()
     doc["caution"] = CAUTION
     return Outcome(text=render.fluid_text(s, result) + "\n\n" + CAUTION, json=doc)
 

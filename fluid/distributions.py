@@ -370,7 +370,7 @@ def parse_distribution(spec: Any, path: str, base_dir: Path | None = None) -> Di
     if not isinstance(spec, dict):
         raise FieldError(path, "must be a number or {dist: NAME, ...}", spec)
     name = spec.get("dist")
-    if name not in _PARSERS:
+    if not isinstance(name, str) or name not in _PARSERS:
         raise FieldError(
             f"{path}.dist", f"must be one of {', '.join(DISTRIBUTION_NAMES)}", name
         )

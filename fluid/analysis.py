@@ -1,0 +1,353 @@
+"""Fluid answers for a scenario: throughput, bottlenecks and loads (design.md §4.1).
+
+:func:`throughput` picks the method: the throughput LP (:mod:`fluid.lp`) when the net has no
+priorities, every source is Poisson and no pool has a schedule; otherwise the counter equations
+integrated on a grid (:mod:`fluid.counters`). With the LP the counters are also run, on a coarser
+budget, as a cross-check (``cross_check``: the largest relative difference of a transition rate).
+
+The fluid model of §4.1 ignores patience: nobody abandons, and above capacity queues grow. Whitt's
+fluid model of abandonment (Whitt 2006) is applied later by ``compare``.
+
+Rates are per the scenario's time unit.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from .counters import MAX_POINTS, CounterSolution, integrate_counters
+from .invariants import pool_invariants
+from .lp import places_without_exit, throughput_lp
+from .scenario import Scenario
+
+__all__ = ["FluidResult", "throughput", "offered_rates", "pool_loads"]
+
+CROSS_CHECK_POINTS = 20_000
+# A pool is a bottleneck when one more agent raises the output by more than this (relative);
+# the counters' long-run slopes are exact to about 1e-9 once periodic, 1e-6 while converging
+RISE_TOLERANCE = 1e-7
+COUNTER_RISE_TOLERANCE = 1e-6
+
+
+@dataclass(frozen=True)
+class FluidResult:
+    """Fluid throughput of a scenario.
+
+    ``method``: "lp" or "counters"; ``rates``: transition -> firings per time unit (long-run for
+    nets with constant inputs; for nets with profiles, traces or schedules the mean over the
+    statistics window ``window`` = [warmup, horizon], as the simulation measures it);
+    ``source_rates``: source -> arrivals per time unit on the same basis; ``output_rate``: total
+    rate of the transitions that end jobs; ``bottlenecks``: pools whose one more agent raises the
+    output (phase "inflow" when there are none); ``load``: pool -> work offered at the inflow-driven
+    rates (``offered_rates``: every pool unlimited; mean arrival rates for profiles) divided by its
+    staff (mean staff over the horizon for schedules); ``inf`` when a pool with no staff is
+    offered work, ``nan`` for a pool on no conservation invariant; ``cross_check``: with the LP,
+    the largest relative difference between LP and counter rates (None otherwise);
+    ``rounding``: worst relative rounding of a holding time on the counters' grid (None when no
+    counters ran); ``notes``: caveats (e.g. patience ignored).
+
+    The fluid model ignores patience (Whitt's fluid model of abandonment is applied in compare).
+    """
+
+    scenario_name: str
+    time_unit: str
+    method: str
+    rates: dict[str, float]
+    source_rates: dict[str, float]
+    output_rate: float
+    bottlenecks: tuple[str, ...]
+    load: dict[str, float]
+    offered_rates: dict[str, float]
+    staff: dict[str, float]
+    window: tuple[float, float] | None = None
+    cross_check: float | None = None
+    rounding: float | None = None
+    dt: float | None = None
+    horizon: float | None = None
+    notes: tuple[str, ...] = ()
+    counters: CounterSolution | None = field(default=None, repr=False, compare=False)
+
+    @property
+    def phase(self) -> str:
+        """The set of limiting pools joined by "+", or "inflow" when none limits."""
+        return "+".join(self.bottlenecks) if self.bottlenecks else "inflow"
+
+    def to_frame(self):
+        """Tidy table with columns kind, name, metric, value."""
+        import pandas as pd
+
+        rows: list[tuple[str, str, str, float]] = []
+        for q, v in self.rates.items():
+            rows.append(("transition", q, "rate", v))
+            rows.append(("transition", q, "offered_rate", self.offered_rates.get(q, math.nan)))
+        for s, v in self.source_rates.items():
+            rows.append(("source", s, "rate", v))
+        for p, v in self.load.items():
+            rows.append(("pool", p, "load", v))
+            rows.append(("pool", p, "staff", self.staff[p]))
+            rows.append(("pool", p, "bottleneck", float(p in self.bottlenecks)))
+        rows.append(("scenario", self.scenario_name, "output_rate", self.output_rate))
+        for metric in ("cross_check", "rounding", "dt", "horizon"):
+            value = getattr(self, metric)
+            if value is not None:
+                rows.append(("scenario", self.scenario_name, metric, float(value)))
+        return pd.DataFrame(rows, columns=["kind", "name", "metric", "value"])
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready dictionary with the keys of design.md §5 (``throughput``, ``bottlenecks``,
+        ``load``, ``method``) and more. Infinite or undefined numbers (a pool with no staff, a
+        pool on no invariant) become ``None`` (JSON null)."""
+        return {
+            "scenario": self.scenario_name,
+            "time_unit": self.time_unit,
+            "method": self.method,
+            "throughput": _clean(self.rates),
+            "source_rates": _clean(self.source_rates),
+            "output_rate": _num(self.output_rate),
+            "bottlenecks": list(self.bottlenecks),
+            "phase": self.phase,
+            "load": _clean(self.load),
+            "offered_rates": _clean(self.offered_rates),
+            "staff": _clean(self.staff),
+            "window": None if self.window is None else [_num(x) for x in self.window],
+            "cross_check": _num(self.cross_check),
+            "rounding": _num(self.rounding),
+            "dt": _num(self.dt),
+            "horizon": _num(self.horizon),
+            "notes": list(self.notes),
+        }
+
+    def to_json(self, **kwargs) -> str:
+        """:meth:`to_dict` as JSON text (strict JSON: no NaN or Infinity tokens)."""
+        return json.dumps(self.to_dict(), allow_nan=False, **kwargs)
+
+
+def _num(x: float | None) -> float | None:
+    if x is None or not math.isfinite(x):
+        return None
+    return float(x)
+
+
+def _clean(d: dict[str, float]) -> dict[str, float | None]:
+    return {k: _num(v) for k, v in d.items()}
+
+
+# --- offered work and loads ----------------------------------------------------------------------
+
+
+def _share(scenario: Scenario, place: str, transition: str) -> float:
+    """Share of the jobs entering ``place`` that leave by ``transition`` when no pool limits."""
+    order = scenario.priority_order(place)
+    if order:
+        # with every pool unlimited the highest priority takes every job as it becomes available
+        return 1.0 if order[0] == transition else 0.0
+    return scenario.proportion(place, transition)
+
+
+def offered_rates(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
+    """Inflow-driven rates: ``(transition rates, job-place inflows)`` per time unit, as if every
+    pool were unlimited. Sources with a profile or trace count at their mean rate over
+    ``horizon`` (default: the scenario's run horizon). A place whose jobs can never end (every
+    path from it leads back into a circuit of places) has an unbounded inflow, reported as
+    ``inf``, as soon as any job reaches it."""
+    h = scenario.run.horizon if horizon is None else horizon
+    places = list(scenario.places)
+    moves = [(scenario.job_input(q), scenario.job_output(q), q) for q in scenario.transitions]
+    moves = [(a, b, q, _share(scenario, a, q)) for a, b, q in moves]
+    # places from which some job can still end (backwards from the ending transitions)
+    can_end = {a for a, b, q, w in moves if b is None and w > 0}
+    grew = True
+    while grew:
+        grew = False
+        for a, b, q, w in moves:
+            if w > 0 and b in can_end and a not in can_end:
+                can_end.add(a)
+                grew = True
+    open_places = [p for p in places if p in can_end]
+    idx = {p: i for i, p in enumerate(open_places)}
+    n = len(open_places)
+    lam = {p: 0.0 for p in places}
+    for src in scenario.sources.values():
+        lam[src.into] += src.mean_rate(h)
+    # x = λ + Pᵀx over the places whose jobs can end (P is then substochastic and I − Pᵀ regular)
+    pt = np.zeros((n, n))
+    for a, b, q, w in moves:
+        if a in idx and b in idx:
+            pt[idx[b], idx[a]] += w
+    x = np.linalg.solve(np.eye(n) - pt, np.array([lam[p] for p in open_places])) if n else []
+    inflow = {p: float(x[idx[p]]) for p in open_places}
+    # the rest: reached (inflow > 0) means jobs pile up and circulate without bound
+    reached = {p for p in places if p not in idx and lam[p] > 0}
+    reached |= {b for a, b, q, w in moves if a in idx and b is not None and b not in idx
+                and w > 0 and inflow[a] > 0}
+    grew = True
+    while grew:
+        grew = False
+        for a, b, q, w in moves:
+            if a in reached and b is not None and b not in reached and w > 0:
+                reached.add(b)
+                grew = True
+    for p in places:
+        if p not in idx:
+            inflow[p] = math.inf if p in reached else 0.0
+    rates = {}
+    for a, b, q, w in moves:
+        rates[q] = 0.0 if w == 0 or inflow[a] == 0 else w * inflow[a]
+    return rates, {p: inflow[p] for p in places}
+
+
+def pool_loads(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
+    """``(load, staff)`` per pool: offered work (agents busy at the inflow-driven rates: Σ over the
+    job places on the pool's invariant of weight × mean hold × inflow) over staff (mean staff
+    over ``horizon`` with a schedule)."""
+    h = scenario.run.horizon if horizon is None else horizon
+    _, inflow = offered_rates(scenario, h)
+    invariants = pool_invariants(scenario)
+    load, staff = {}, {}
+    for r, pool in scenario.pools.items():
+        staff[r] = pool.mean_staff(h)
+        inv = invariants[r]
+        if not inv:
+            load[r] = math.nan
+            continue
+        work = sum(w * scenario.places[p].hold_mean * inflow[p]
+                   for p, w in inv.items()
+                   if p in scenario.places and scenario.places[p].hold_mean > 0 and inflow[p] > 0)
+        if staff[r] > 0:
+            load[r] = work / staff[r]
+        else:
+            load[r] = math.inf if work > 0 else 0.0
+    return load, staff
+
+
+# --- throughput ----------------------------------------------------------------------------------
+
+
+def _rise_tolerance(value: float, tolerance: float = RISE_TOLERANCE) -> float:
+    return tolerance * max(1.0, abs(value))
+
+
+def _lp_answer(scenario: Scenario):
+    sol = throughput_lp(scenario)
+    ending = scenario.ending_transitions or tuple(scenario.transitions)
+    base = sum(sol.rates[q] for q in ending)
+    bottlenecks = []
+    for pool, p in scenario.pools.items():
+        more = throughput_lp(scenario, staff={pool: p.staff + 1})
+        if sum(more.rates[q] for q in ending) - base > _rise_tolerance(base):
+            bottlenecks.append(pool)
+    return sol, base, tuple(bottlenecks)
+
+
+def _window(scenario: Scenario, sol: CounterSolution) -> tuple[float, float]:
+    end = min(scenario.run.horizon, sol.horizon)
+    start = scenario.run.warmup if scenario.run.warmup < end else 0.0
+    return start, end
+
+
+def _counter_output(sol: CounterSolution, ending, window) -> float:
+    """Long-run output rate, or (time-varying nets) the mean over the window of the total ended
+    counter, which rises whenever some job ends earlier."""
+    if window is None:
+        return sum(sol.rates[q] for q in ending)
+    i, j = (int(round(t / sol.dt)) for t in window)
+    return float(sum(sol.counters[q][i: j + 1].mean() for q in ending))
+
+
+def throughput(
+    scenario: Scenario,
+    *,
+    method: str = "auto",
+    dt: float | None = None,
+    horizon: float | None = None,
+    cross_check: bool = True,
+) -> FluidResult:
+    """Fluid throughput, bottlenecks and loads of ``scenario`` (rates per its time unit).
+
+    ``method``: "auto" (the LP when the net has no priorities, only Poisson sources, no
+    schedules and every job can end; else the counters), "lp" or "counters". ``dt`` and
+    ``horizon`` set the counters' grid (defaults: :func:`fluid.counters.choose_step`,
+    :func:`fluid.counters.default_horizon`). ``cross_check``: with the LP, also run the counters
+    (at most 20 000 grid points unless a grid is given) and report the largest relative rate
+    difference.
+    """
+    constant = not scenario.has_time_variation
+    if method == "auto":
+        lp_holds = constant and not scenario.has_priorities and not places_without_exit(scenario)
+        method = "lp" if lp_holds else "counters"
+    if method not in ("lp", "counters"):
+        raise ValueError(f"method must be 'auto', 'lp' or 'counters' (got {method!r})")
+    notes = []
+    if scenario.has_patience:
+        notes.append("patience is ignored by the fluid model (no abandonment; queues grow "
+                     "above capacity)")
+    load_horizon = horizon if horizon is not None else scenario.run.horizon
+    load, staff = pool_loads(scenario, load_horizon)
+    common = dict(
+        scenario_name=scenario.name, time_unit=scenario.time_unit, load=load, staff=staff,
+        offered_rates=offered_rates(scenario, load_horizon)[0],
+    )
+    if method == "lp":
+        return _by_lp(scenario, dt, horizon, cross_check, notes, common)
+    return _by_counters(scenario, dt, horizon, notes, common)
+
+
+def _by_lp(scenario, dt, horizon, cross_check, notes, common) -> FluidResult:
+    sol, output, bottlenecks = _lp_answer(scenario)
+    check = counters = None
+    if cross_check:
+        # keep the check cheap unless the caller asked for a particular grid
+        budget = CROSS_CHECK_POINTS if dt is None and horizon is None else MAX_POINTS
+        counters = integrate_counters(scenario, dt=dt, horizon=horizon, max_points=budget)
+        # relative to each rate, but not below a millionth of the largest rate in the net
+        floor = 1e-6 * max([*sol.rates.values(), *sol.source_rates.values(), 1e-300])
+        check = max(
+            (abs(counters.rates[q] - r) / max(abs(r), floor) for q, r in sol.rates.items()),
+            default=0.0,
+        )
+    return FluidResult(
+        method="lp", rates=sol.rates, source_rates=sol.source_rates, output_rate=output,
+        bottlenecks=bottlenecks, cross_check=check,
+        rounding=None if counters is None else counters.rounding,
+        dt=None if counters is None else counters.dt,
+        horizon=None if counters is None else counters.horizon,
+        notes=tuple(notes), counters=counters, **common,
+    )
+
+
+def _by_counters(scenario, dt, horizon, notes, common) -> FluidResult:
+    constant = not scenario.has_time_variation
+    if horizon is None and not constant:
+        horizon = scenario.run.horizon
+    sol = integrate_counters(scenario, dt=dt, horizon=horizon)
+    window = None if constant else _window(scenario, sol)
+    if window is None:
+        rates, srates = sol.rates, sol.source_rates
+    else:
+        both = sol.rates_between(*window)
+        rates = {q: both[q] for q in scenario.transitions}
+        srates = {s: both[s] for s in scenario.sources}
+    if sol.unconverged_steps:
+        notes.append(f"same-time sweeps hit their cap at {sol.unconverged_steps} grid steps")
+    if window is None and sol.period is None:
+        notes.append("the counters had not become periodic by the horizon: long-run rates are "
+                     "estimated from the slope over its last half")
+    ending = scenario.ending_transitions or tuple(scenario.transitions)
+    base = _counter_output(sol, ending, window)
+    bottlenecks = []
+    for pool in scenario.pools:
+        more = integrate_counters(scenario, dt=sol.dt, horizon=sol.horizon, extra_staff={pool: 1})
+        rise = _counter_output(more, ending, window) - base
+        if rise > _rise_tolerance(base, COUNTER_RISE_TOLERANCE):
+            bottlenecks.append(pool)
+    return FluidResult(
+        method="counters", rates=rates, source_rates=srates,
+        output_rate=sum(rates[q] for q in ending), bottlenecks=tuple(bottlenecks),
+        window=window, rounding=sol.rounding, dt=sol.dt, horizon=sol.horizon,
+        notes=tuple(notes), counters=sol, **common,
+    )

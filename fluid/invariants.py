@@ -1,0 +1,270 @@
+"""Conservation invariants (P-semiflows) of a scenario's net.
+
+A P-semiflow is a non-negative integer weighting ``y`` of the places and pools with ``yᵀC = 0``,
+where ``C`` is the incidence matrix (rows: places and pools; columns: transitions, plus one column
+per source that only produces one token into its place). Along any firing sequence the weighted
+token count ``Σ y_p · m_p`` then stays at its initial value. For a pool this is how its agents
+are accounted for: ``front_desk + front_talk + front_wrap = staff`` says where every agent is.
+A pool on no semiflow can leak or multiply agents.
+
+The semiflows of minimal support are computed with the Farkas algorithm as improved by
+Martínez and Silva (1982, "A simple and fast algorithm to obtain all invariants of a generalised
+Petri net"): columns of ``C`` are eliminated one at a time by non-negative combinations of pairs of
+rows, and after each step only rows of minimal support are kept (the extreme rays of the cone
+``{y ≥ 0 : yᵀC = 0}`` are exactly its minimal-support elements). Arithmetic is on Python
+integers, so the weights are exact.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from functools import reduce
+
+import numpy as np
+from scipy.optimize import linprog
+
+from .scenario import Scenario
+
+__all__ = [
+    "incidence_matrix",
+    "p_semiflows",
+    "uncovered_pools",
+    "pool_invariant",
+    "pool_invariants",
+    "InvariantWarning",
+    "DEFAULT_MAX_ROWS",
+]
+
+DEFAULT_MAX_ROWS = 5000
+
+
+class InvariantWarning(RuntimeWarning):
+    """The semiflow enumeration hit its row cap and fell back to one semiflow per node."""
+
+
+def incidence_matrix(scenario: Scenario) -> tuple[list[str], list[str], np.ndarray]:
+    """Return ``(rows, columns, C)``: rows are pools then job places (declaration order); columns
+    are transitions then sources; ``C[i, j]`` = tokens column ``j`` puts into row ``i`` minus the
+    tokens it takes (integers)."""
+    rows = [*scenario.pools, *scenario.places]
+    cols = [*scenario.transitions, *scenario.sources]
+    index = {name: i for i, name in enumerate(rows)}
+    c = np.zeros((len(rows), len(cols)), dtype=np.int64)
+    for j, t in enumerate(scenario.transitions.values()):
+        for p, w in t.inputs.items():
+            c[index[p], j] -= int(w)
+        for p, w in t.outputs.items():
+            c[index[p], j] += int(w)
+    for k, s in enumerate(scenario.sources.values()):
+        c[index[s.into], len(scenario.transitions) + k] += 1
+    return rows, cols, c
+
+
+def _normalise(values: list[int]) -> list[int]:
+    g = reduce(math.gcd, (abs(v) for v in values if v), 0)
+    return values if g <= 1 else [v // g for v in values]
+
+
+def _support(y: list[int]) -> int:
+    mask = 0
+    for i, v in enumerate(y):
+        if v:
+            mask |= 1 << i
+    return mask
+
+
+def _keep_minimal(rows: list[tuple[list[int], list[int], int]]) -> list:
+    """Drop rows whose support contains another row's support (and duplicates of a support)."""
+    rows = sorted(rows, key=lambda r: bin(r[2]).count("1"))
+    kept: list = []
+    for row in rows:
+        mask = row[2]
+        if any((k[2] & mask) == k[2] for k in kept):
+            continue
+        kept.append(row)
+    return kept
+
+
+def _farkas(c: np.ndarray, max_rows: int) -> list[list[int]] | None:
+    """Minimal-support semiflows of ``c`` (rows × columns), or None when the cap is exceeded."""
+    n_rows, n_cols = c.shape
+    # each row: (remaining columns of C as ints, the y part, support mask of y)
+    rows = []
+    for i in range(n_rows):
+        y = [0] * n_rows
+        y[i] = 1
+        rows.append(([int(v) for v in c[i]], y, 1 << i))
+    remaining = list(range(n_cols))
+    while remaining:
+        # eliminate first the column that creates the fewest new rows (Martínez–Silva heuristic)
+        def cost(j: int) -> int:
+            pos = sum(1 for r in rows if r[0][j] > 0)
+            neg = sum(1 for r in rows if r[0][j] < 0)
+            return pos * neg - pos - neg
+
+        j = min(remaining, key=cost)
+        remaining.remove(j)
+        zero = [r for r in rows if r[0][j] == 0]
+        pos = [r for r in rows if r[0][j] > 0]
+        neg = [r for r in rows if r[0][j] < 0]
+        new = list(zero)
+        for cp, yp, mp in pos:
+            for cn, yn, mn in neg:
+                mask = mp | mn
+                # a combination whose support contains a zero-row's support is never minimal
+                if any((z[2] & mask) == z[2] for z in zero):
+                    continue
+                fp, fn = -cn[j], cp[j]
+                merged = _normalise([fp * a + fn * b for a, b in zip(cp + yp, cn + yn)])
+                new.append((merged[: len(cp)], merged[len(cp):], mask))
+                if len(new) > max_rows:
+                    return None
+        rows = _keep_minimal(new)
+    return [r[1] for r in rows]
+
+
+def _lp_semiflow(c: np.ndarray, node: int, penalty: np.ndarray | None = None) -> np.ndarray | None:
+    """A vertex of ``{y ≥ 0 : yᵀC = 0, y_node = 1}`` (a minimal-support semiflow through
+    ``node``), or None when there is none."""
+    n = c.shape[0]
+    cost = np.ones(n) if penalty is None else penalty
+    a_eq = np.vstack([c.T.astype(float), np.eye(n)[node]])
+    b_eq = np.zeros(a_eq.shape[0])
+    b_eq[-1] = 1.0
+    res = linprog(cost, A_eq=a_eq, b_eq=b_eq, bounds=(0, None), method="highs")
+    return res.x if res.status == 0 else None
+
+
+def _to_integers(y: np.ndarray) -> list[int]:
+    from fractions import Fraction
+
+    fr = [Fraction(float(v)).limit_denominator(1000) if v > 1e-9 else Fraction(0) for v in y]
+    lcm = reduce(lambda a, b: a * b // math.gcd(a, b), (f.denominator for f in fr), 1)
+    return _normalise([int(f * lcm) for f in fr])
+
+
+def _semiflow_rows(scenario: Scenario, max_rows: int) -> tuple[list[str], list[list[int]], bool]:
+    names, _, c = incidence_matrix(scenario)
+    found = _farkas(c, max_rows)
+    if found is not None:
+        return names, found, True
+    # Fallback: one LP vertex per node that lies on a semiflow; each is a minimal-support
+    # semiflow, but the list may miss some.
+    flows: dict[int, list[int]] = {}
+    for i in range(len(names)):
+        y = _lp_semiflow(c, i)
+        if y is not None:
+            ints = _to_integers(y)
+            flows.setdefault(_support(ints), ints)
+    return names, list(flows.values()), False
+
+
+def p_semiflows(scenario: Scenario, *, max_rows: int = DEFAULT_MAX_ROWS) -> list[dict[str, int]]:
+    """All minimal-support P-semiflows of the net, each as ``{place or pool: weight}`` (weights
+    are coprime positive integers; only the support is listed).
+
+    The source columns make every place a source feeds (and everything upstream-tied to it) carry
+    weight 0, so only closed token circuits, such as a pool and the places its agents visit,
+    appear. If the enumeration needs more than ``max_rows`` intermediate rows, an
+    :class:`InvariantWarning` is issued and the answer falls back to one minimal semiflow per
+    place or pool that lies on any (found by linear programming), which may not be all of them.
+    """
+    names, flows, complete = _semiflow_rows(scenario, max_rows)
+    if not complete:
+        warnings.warn(
+            f"{scenario.file}: more than {max_rows} intermediate rows while enumerating "
+            "conservation invariants; listing one invariant per place or pool instead",
+            InvariantWarning,
+            stacklevel=2,
+        )
+    out = [{names[i]: v for i, v in enumerate(y) if v} for y in flows]
+    order = {n: i for i, n in enumerate(names)}
+    out.sort(key=lambda d: sorted(order[n] for n in d))
+    return out
+
+
+def uncovered_pools(scenario: Scenario) -> list[str]:
+    """Pools that lie on no P-semiflow (their agents can leak or multiply), in declaration order.
+
+    Decided by one LP, independent of the enumeration cap: maximise ``Σ w_r`` subject to
+    ``w_r ≤ y_r``, ``w_r ≤ 1``, ``yᵀC = 0``, ``y ≥ 0``. The semiflows form a cone closed under
+    addition, so at the optimum ``w_r = 1`` exactly for the pools that some semiflow covers.
+    """
+    pools = list(scenario.pools)
+    if not pools:
+        return []
+    names, _, c = incidence_matrix(scenario)
+    n, k = len(names), len(pools)
+    pool_rows = [names.index(p) for p in pools]
+    # variables: y (n), then w (k)
+    a_eq = np.hstack([c.T.astype(float), np.zeros((c.shape[1], k))])
+    a_ub = np.zeros((k, n + k))
+    for i, r in enumerate(pool_rows):
+        a_ub[i, r] = -1.0
+        a_ub[i, n + i] = 1.0
+    cost = np.concatenate([np.zeros(n), -np.ones(k)])
+    bounds = [(0, None)] * n + [(0, 1)] * k
+    res = linprog(
+        cost,
+        A_ub=a_ub,
+        b_ub=np.zeros(k),
+        A_eq=a_eq if a_eq.shape[0] else None,
+        b_eq=np.zeros(a_eq.shape[0]) if a_eq.shape[0] else None,
+        bounds=bounds,
+        method="highs",
+    )
+    if res.status != 0:  # the zero vector is always feasible and w ≤ 1 bounds it: never expected
+        from .errors import SolverError
+
+        raise SolverError(f"pool coverage LP failed: {res.message}")
+    w = res.x[n:]
+    return [p for p, v in zip(pools, w) if v < 0.5]
+
+
+def pool_invariant(
+    scenario: Scenario, pool: str, *, max_rows: int = DEFAULT_MAX_ROWS
+) -> dict[str, float]:
+    """The semiflow used to locate the agents of ``pool``, normalised so that ``pool`` has weight
+    1: ``{pool: 1.0, place: agents of pool held per token in place, ...}``.
+
+    Prefers a minimal semiflow whose support holds no other pool (then the weights read directly
+    as "agents of this pool per job in that place"); among several, the one of smallest support.
+    Returns ``{}`` when the pool is on no semiflow (see :func:`uncovered_pools`).
+    """
+    if pool not in scenario.pools:
+        raise KeyError(f"{pool!r} is not a pool")
+    return _pool_invariant(scenario, pool, _semiflow_rows(scenario, max_rows))
+
+
+def pool_invariants(
+    scenario: Scenario, *, max_rows: int = DEFAULT_MAX_ROWS
+) -> dict[str, dict[str, float]]:
+    """:func:`pool_invariant` of every pool (the semiflows are enumerated once)."""
+    rows = _semiflow_rows(scenario, max_rows)
+    return {p: _pool_invariant(scenario, p, rows) for p in scenario.pools}
+
+
+def _pool_invariant(scenario: Scenario, pool: str, rows) -> dict[str, float]:
+    names, flows, complete = rows
+    r = names.index(pool)
+    pool_rows = {names.index(p) for p in scenario.pools}
+    candidates = [y for y in flows if y[r] > 0]
+    if not complete:
+        # the fallback list may miss the best one: ask the LP directly, penalising other pools
+        _, _, c = incidence_matrix(scenario)
+        penalty = np.array(
+            [1000.0 if i in pool_rows and i != r else 1.0 for i in range(len(names))]
+        )
+        y = _lp_semiflow(c, r, penalty)
+        if y is not None:
+            candidates.append(_to_integers(y))
+    if not candidates:
+        return {}
+
+    def rank(y: list[int]) -> tuple[int, int]:
+        others = sum(1 for i in pool_rows if i != r and y[i])
+        return others, sum(1 for v in y if v)
+
+    best = min(candidates, key=rank)
+    return {names[i]: v / best[r] for i, v in enumerate(best) if v}
