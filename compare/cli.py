@@ -80,6 +80,43 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also tabulate arrivals, served, abandoned, service level and queue per "
                    "interval of this length")
     p.set_defaults(handler=commands.simulate)
+
+    p = sub.add_parser("compare", help="the main job: fluid against simulation, gaps and flags")
+    _common(p, scenario="optional")
+    _simulation_options(p)
+    p.add_argument("--interval", type=float, metavar="STEP",
+                   help="per-interval comparison step (default for profiles and schedules: their step)")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    p.set_defaults(handler=commands.compare_cmd)
+
+    p = sub.add_parser("station", help="single-station self-check against Erlang B/C/A, Cobham, Whitt")
+    p.add_argument("--servers", type=int, required=True, metavar="C", help="agents")
+    p.add_argument("--rate", type=float, required=True, metavar="L",
+                   help="arrival rate per time unit (the total over classes)")
+    p.add_argument("--mean-hold", type=float, required=True, metavar="H", dest="mean_hold",
+                   help="mean holding time")
+    p.add_argument("--patience-mean", type=float, metavar="P", dest="patience_mean",
+                   help="mean of exponential patience (0 = a loss system; none = callers wait)")
+    p.add_argument("--hold-cv", type=float, default=1.0, dest="hold_cv",
+                   help="coefficient of variation of the hold (1 = exponential; else lognormal)")
+    p.add_argument("--class-rates", type=float, nargs="+", metavar="L", dest="class_rates",
+                   help="priority classes, highest first (their sum must equal --rate)")
+    p.add_argument("--within", type=float, help="service-level threshold (default: mean hold / 10)")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    p.add_argument("--json", action="store_true", help="print one JSON document instead of tables")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="PATH=VALUE",
+                   help="change the simulated station only (e.g. sources.calls.rate=1.2), to see "
+                   "the checks fail when the simulation differs from the formulas")
+    _simulation_options(p)
+    p.set_defaults(handler=commands.station)
+
+    p = sub.add_parser("scale", help="fluid-limit study: the gap as volume and staff grow together")
+    _common(p)
+    _simulation_options(p)
+    p.add_argument("--factors", type=float, nargs="+", default=[1, 2, 4, 8, 16], metavar="K",
+                   help="scale factors for arrival rates and staff (default: 1 2 4 8 16)")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    p.set_defaults(handler=commands.scale)
     return parser
 
 

@@ -17,7 +17,8 @@ from fluid.scenario import Scenario
 
 from . import render
 
-__all__ = ["Outcome", "InputError", "inspect", "fluid", "simulate", "demo_path", "CAUTION"]
+__all__ = ["Outcome", "InputError", "inspect", "fluid", "simulate", "compare_cmd", "station",
+           "scale", "demo_path", "CAUTION"]
 
 CAUTION = (
     "Decision support under the model's assumptions. Where staffing affects people's safety "
@@ -127,3 +128,115 @@ def simulate(args) -> Outcome:
     doc = result.to_json()
     doc["caution"] = CAUTION
     return Outcome(text=render.simulation_text(s, result) + "\n\n" + CAUTION, json=doc)
+
+
+def _report_note(files) -> str:
+    return f"report written to {files.html}"
+
+
+def compare_cmd(args) -> Outcome:
+    from .core import compare
+    from .reports import comparison_report
+
+    s = _load(args)
+    opts = _check_simulation_args(args, s)
+    progress = _Progress(opts["reps"], args.quiet, "replications")
+    try:
+        result = compare(s, reps=opts["reps"], horizon=opts["horizon"], warmup=opts["warmup"],
+                         seed=opts["seed"], workers=opts["workers"], max_jobs=opts["max_jobs"],
+                         interval=args.interval, progress=progress,
+                         record_waits=args.report is not None)
+    finally:
+        progress.close()
+    text = render.comparison_text(s, result)
+    doc = result.to_json()
+    doc["caution"] = CAUTION
+    if args.report:
+        files = comparison_report(args.report, result, s, caution=CAUTION,
+                                  summary=render.comparison_summary(s, result))
+        text += "\n\n" + _report_note(files)
+        doc["report"] = str(files.html)
+    return Outcome(text=text + "\n\n" + CAUTION, json=doc)
+
+
+def station(args) -> Outcome:
+    from .reports import station_report
+    from .station import station_check
+
+    cmd = "fluidgap station"
+    if args.servers < 1:
+        raise InputError(f"{cmd}: --servers must be >= 1 (got {args.servers})")
+    for flag, value in (("--rate", args.rate), ("--mean-hold", args.mean_hold)):
+        if not value > 0:
+            raise InputError(f"{cmd}: {flag} must be > 0 (got {value:g})")
+    if args.patience_mean is not None and args.patience_mean < 0:
+        raise InputError(f"{cmd}: --patience-mean must be >= 0 (got {args.patience_mean:g})")
+    if args.hold_cv < 0:
+        raise InputError(f"{cmd}: --hold-cv must be >= 0 (got {args.hold_cv:g})")
+    if args.within is not None and args.within < 0:
+        raise InputError(f"{cmd}: --within must be >= 0 (got {args.within:g})")
+    reps = 20 if args.reps is None else args.reps
+    if reps < 2:
+        raise InputError(f"{cmd}: --reps must be >= 2 for an interval (got {reps})")
+    if args.workers is not None and args.workers < 1:
+        raise InputError(f"{cmd}: --workers must be >= 1 (got {args.workers})")
+    class_rates = args.class_rates
+    rate = args.rate
+    if class_rates and any(not r > 0 for r in class_rates):
+        raise InputError(f"{cmd}: every --class-rates value must be > 0")
+    # --set changes the simulated station only (the formulas keep the flags' values): a way to
+    # see that the checks do fail when the simulation is fed something else
+    from fluid.loading import parse_override
+
+    overrides = dict(parse_override(o) for o in args.overrides) or None
+    progress = _Progress(reps, args.quiet, "replications")
+    try:
+        result = station_check(
+            args.servers, rate, args.mean_hold, patience_mean=args.patience_mean,
+            hold_cv=args.hold_cv, class_rates=class_rates, within=args.within, reps=reps,
+            horizon=args.horizon, warmup=args.warmup, seed=1 if args.seed is None else args.seed,
+            workers=args.workers or min(reps, os.cpu_count() or 1), progress=progress,
+            _simulate_overrides=overrides)
+    except ValueError as exc:
+        raise InputError(f"{cmd}: {exc}") from None
+    finally:
+        progress.close()
+    text = render.station_text(result)
+    doc = result.to_json()
+    doc["caution"] = CAUTION
+    if args.report:
+        files = station_report(args.report, result, caution=CAUTION,
+                               summary=render.station_summary(result))
+        text += "\n\n" + _report_note(files)
+        doc["report"] = str(files.html)
+    return Outcome(text=text + "\n\n" + CAUTION, json=doc)
+
+
+def scale(args) -> Outcome:
+    from fluid.errors import ScenarioError
+
+    from .reports import scale_report
+    from .scale import scale_study
+
+    s = _load(args)
+    opts = _check_simulation_args(args, s)
+    if not args.factors or any(not k > 0 for k in args.factors):
+        raise InputError("fluidgap scale: --factors must be positive numbers")
+    progress = _Progress(opts["reps"] * len(args.factors), args.quiet, "replications")
+    try:
+        result = scale_study(s, args.factors, reps=opts["reps"], horizon=opts["horizon"],
+                             warmup=opts["warmup"], seed=opts["seed"], workers=opts["workers"],
+                             max_jobs=opts["max_jobs"], progress=progress)
+    except ScenarioError:
+        raise
+    finally:
+        progress.close()
+    text = render.scale_text(result)
+    doc = result.to_json()
+    doc["caution"] = CAUTION
+    if args.report:
+        files = scale_report(args.report, result, caution=CAUTION,
+                             summary=render.scale_summary(result))
+        text += "\n\n" + _report_note(files)
+        doc["report"] = str(files.html)
+    return Outcome(text=text + "\n\n" + CAUTION, json=doc)

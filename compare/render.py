@@ -195,3 +195,160 @@ class _Row:
 
     def __init__(self, mean, low, high, n):
         self.mean, self.low, self.high, self.n = mean, low, high, n
+
+
+# --- compare, station, scale ---------------------------------------------------------------------
+
+FLAG_TITLES = {
+    "throughput_optimistic": "fluid throughput optimistic",
+    "hidden_congestion": "hidden congestion",
+    "abandonment_underestimated": "abandonment underestimated",
+    "near_critical": "near critical load",
+    "target_missed": "target missed",
+    "unstable": "unstable",
+}
+
+
+def _pct(x: float) -> str:
+    return fmt(100 * x, 3) + " %"
+
+
+def flags_text(flags) -> str:
+    """Flags grouped by kind; a throughput shortfall inherited by many transitions downstream
+    is listed once with the transitions it reaches."""
+    if not flags:
+        return "flags: none (the fluid answer holds within the simulation's intervals)"
+    lines = [f"flags ({len(flags)}):"]
+    by_kind: dict[str, list] = {}
+    for f in flags:
+        by_kind.setdefault(f.kind, []).append(f)
+    for kind, group in by_kind.items():
+        title = FLAG_TITLES.get(kind, kind)
+        if kind == "throughput_optimistic" and len(group) > 2:
+            roots = [f for f in group if "begins upstream" not in f.message]
+            inherited = [f.where for f in group if "begins upstream" in f.message]
+            for f in roots:
+                lines.append(f"  [{title}] {f.where}: {f.message}")
+            if inherited:
+                lines.append(f"  [{title}] also below the fluid rate downstream of the above: "
+                             + ", ".join(inherited))
+            continue
+        for f in group:
+            lines.append(f"  [{title}] {f.where}: {f.message}")
+    return "\n".join(lines)
+
+
+def comparison_summary(s: Scenario, c) -> list[str]:
+    t = c.gaps.totals.set_index("metric")
+    out = t.loc["output_rate"]
+    lines = [f"{s.name}: {c.simulation.replications} replications of "
+             f"[{fmt(c.settings.warmup)}, {fmt(c.settings.horizon)}] {s.time_unit}, seed "
+             f"{c.settings.seed}; every simulated figure is a mean [95 % interval] over the "
+             "replications.",
+             f"jobs ended per {s.time_unit}: fluid {fmt(out['fluid'])}, simulated "
+             f"{fmt(out['mean'])} [{fmt(out['low'])}, {fmt(out['high'])}]"]
+    if "abandonment" in t.index:
+        ab = t.loc["abandonment"]
+        lines.append(f"abandonment: fluid {_pct(ab['fluid'])}, simulated {_pct(ab['mean'])} "
+                     f"[{_pct(ab['low'])}, {_pct(ab['high'])}]")
+    kinds = sorted({f.kind for f in c.flags})
+    lines.append("flags: " + (", ".join(kinds) if kinds else "none"))
+    return lines
+
+
+def _gap_rows(frame, name_col: str, extra=()):
+    rows = []
+    for r in frame.to_dict("records"):
+        est = _Row(r["mean"], r["low"], r["high"], int(r["n"]))
+        rel = r.get("rel_gap")
+        rows.append([r[name_col], *[r[e] for e in extra], fmt(r["fluid"]), fmt_estimate(est),
+                     "-" if rel is None or rel != rel else f"{100 * rel:+.1f} %"])
+    return rows
+
+
+def comparison_text(s: Scenario, c) -> str:
+    unit = s.time_unit
+    parts = ["\n".join(comparison_summary(s, c)[:-1]), flags_text(c.flags)]
+    parts.append(format_table(
+        ["transition", f"fluid rate per {unit}", "simulated [95 % interval]", "gap"],
+        _gap_rows(c.gaps.transitions, "transition")))
+    parts.append(format_table(
+        ["waiting place", "metric", "fluid state", "fluid", "simulated [95 % interval]", "gap"],
+        _gap_rows(c.gaps.places, "place", extra=("metric", "state"))))
+    if len(c.gaps.pools):
+        parts.append(format_table(
+            ["pool", "staff", "fluid load", "fluid busy", "simulated busy [95 % interval]", "gap"],
+            [[r[0], fmt(row["staff"]), fmt(row["load"], 3), *r[1:]]
+             for r, row in zip(_gap_rows(c.gaps.pools, "pool"),
+                               c.gaps.pools.to_dict("records"))]))
+    if c.transient is not None and len(c.transient):
+        rows = [[f"{fmt(r['start'])}-{fmt(r['end'])}", r["metric"], r["name"] or "",
+                 fmt(r["fluid"]), fmt_estimate(_Row(r["mean"], r["low"], r["high"], int(r["n"])))]
+                for r in c.transient.to_dict("records")]
+        parts.append(format_table(["interval", "metric", "where", "fluid",
+                                   "simulated [95 % interval]"], rows,
+                                  title=f"per interval ({unit}):"))
+    notes = list(c.notes) + list(c.simulation.warnings)
+    if notes:
+        parts.append("\n".join(f"note: {n}" for n in notes))
+    return "\n\n".join(parts)
+
+
+def station_summary(r) -> list[str]:
+    agree = sum(c.agrees for c in r.checks)
+    sim = r.simulation
+    head = (f"station: {r.servers} agents, arrival rate {fmt(r.arrival_rate)}, mean hold "
+            f"{fmt(r.mean_hold)}, hold cv {fmt(r.hold_cv)}")
+    if r.patience_mean is not None:
+        head += f", mean patience {fmt(r.patience_mean)}"
+    if r.class_rates:
+        head += ", priority classes " + " > ".join(fmt(x) for x in r.class_rates)
+    return [head,
+            f"exact model: {r.model}; {sim.replications} replications of [{fmt(sim.warmup)}, "
+            f"{fmt(sim.horizon)}], seed {sim.seed}",
+            f"{agree} of {len(r.checks)} checks agree (formula inside the simulated 95 % interval)"]
+
+
+def station_text(r) -> str:
+    rows = [[c.metric, c.where, fmt(c.formula), fmt_estimate(c.simulation),
+             "yes" if c.agrees else "NO", c.source] for c in r.checks]
+    rows += [[c.metric, c.where, fmt(c.formula), fmt_estimate(c.simulation), "(not judged)",
+              c.source] for c in r.informative]
+    parts = ["\n".join(station_summary(r)),
+             format_table(["metric", "where", "formula", "simulated [95 % interval]", "agrees",
+                           "source"], rows)]
+    if r.notes:
+        parts.append("\n".join(f"note: {n}" for n in r.notes))
+    return "\n\n".join(parts)
+
+
+def scale_summary(r) -> list[str]:
+    lines = [f"{r.scenario_name}: scale study, factors {', '.join(fmt(k) for k in r.factors)}; "
+             f"{r.replications} replications each of [{fmt(r.warmup)}, {fmt(r.horizon)}] "
+             f"{r.time_unit}, seed {r.seed} (common random numbers)"]
+    for m, f in r.fits.items():
+        if f.exponent == f.exponent:
+            lines.append(f"{m}: decays as k^{fmt(f.exponent, 3)} (standard error "
+                         f"{fmt(f.stderr, 2)}, {f.points} points; about -1/2 expected)")
+        else:
+            lines.append(f"{m}: no fit ({'; '.join(f.notes)})")
+    return lines
+
+
+def scale_text(r) -> str:
+    cols = [c for c in ("factor", "arrivals", "fluid_output", "throughput_shortfall",
+                        "abandonment_gap", "max_transition_gap", "max_load",
+                        "unstable_replications") if c in r.table]
+    rows = []
+    for rec in r.table.to_dict("records"):
+        row = []
+        for c in cols:
+            v = rec[c]
+            if c in ("throughput_shortfall", "abandonment_gap") and v == v:
+                v = (f"{fmt(v, 3)} [{fmt(rec[c + '_low'], 3)}, {fmt(rec[c + '_high'], 3)}]")
+            row.append(v if isinstance(v, str) else fmt(v, 4))
+        rows.append(row)
+    parts = ["\n".join(scale_summary(r)), format_table(cols, rows)]
+    if r.notes:
+        parts.append("\n".join(f"note: {n}" for n in r.notes))
+    return "\n\n".join(parts)

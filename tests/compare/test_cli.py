@@ -88,3 +88,62 @@ def test_console_script_runs_as_module():
     )
     assert proc.returncode == 2
     assert proc.stderr.strip().startswith(f"{DEMO}: pools.front_desk")
+
+
+# --- compare, station, scale (short runs: the statistics are tested in their own modules) -------
+
+
+def test_compare_without_scenario_runs_the_demo(capsys, tmp_path):
+    code, out, err = run(capsys, "compare", "--reps", "3", "--horizon", "240", "--warmup", "30",
+                         "--workers", "1", "--quiet", "--report", str(tmp_path / "rep"))
+    assert code == 0, err
+    assert "Fernhollow" in out and "flags" in out and "near critical" in out
+    assert (tmp_path / "rep" / "report.html").exists()
+    assert "Decision support" in (tmp_path / "rep" / "report.html").read_text()
+
+
+def test_compare_json_contract(capsys):
+    code, out, err = run(capsys, "compare", str(ROOT / "configs" / "priority-desk.yaml"),
+                         "--reps", "3", "--horizon", "300", "--warmup", "30", "--workers", "1",
+                         "--json")
+    assert code == 0, err
+    doc = json.loads(out)
+    assert {"fluid", "simulation", "gaps", "flags"} <= set(doc)
+    for flag in doc["flags"]:
+        assert set(flag) == {"kind", "where", "message"}
+    assert doc["simulation"]["replications"] == 3
+
+
+def test_station_json_contract(capsys):
+    code, out, err = run(capsys, "station", "--servers", "5", "--rate", "1", "--mean-hold", "3",
+                         "--reps", "4", "--horizon", "2000", "--workers", "1", "--json")
+    assert code == 0, err
+    doc = json.loads(out)
+    assert doc["model"] == "Erlang C"
+    for check in doc["checks"]:
+        assert {"metric", "formula", "simulation", "agrees", "source"} <= set(check)
+        assert set(check["simulation"]) == {"mean", "low", "high", "n"}
+
+
+@pytest.mark.parametrize("argv,words", [
+    (["station", "--servers", "0", "--rate", "1", "--mean-hold", "3"], "--servers must be >= 1"),
+    (["station", "--servers", "2", "--rate", "-1", "--mean-hold", "3"], "--rate must be > 0"),
+    (["station", "--servers", "2", "--rate", "1", "--mean-hold", "3", "--class-rates", "0.2",
+      "0.3"], "class rates sum"),
+    (["scale", DEMO, "--factors", "0"], "--factors must be positive"),
+    (["compare", DEMO, "--warmup", "900"], "--warmup must be"),
+])
+def test_bad_flags_exit_2(capsys, argv, words):
+    code, out, err = run(capsys, *argv, "--quiet")
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and words in err
+
+
+def test_scale_json(capsys):
+    code, out, err = run(capsys, "scale", str(ROOT / "configs" / "single-station.yaml"),
+                         "--factors", "1", "2", "--reps", "3", "--horizon", "300",
+                         "--warmup", "30", "--workers", "1", "--json")
+    assert code == 0, err
+    doc = json.loads(out)
+    assert [row["factor"] for row in doc["table"]] == [1.0, 2.0]
+    assert "throughput_shortfall" in doc["fits"]
