@@ -218,7 +218,10 @@ def flags_text(flags) -> str:
     is listed once with the transitions it reaches."""
     if not flags:
         return "flags: none (the fluid answer holds within the simulation's intervals)"
-    lines = [f"flags ({len(flags)}):"]
+    import textwrap
+
+    lines: list[str] = []
+    header = f"flags ({len(flags)}):"
     by_kind: dict[str, list] = {}
     for f in flags:
         by_kind.setdefault(f.kind, []).append(f)
@@ -228,14 +231,16 @@ def flags_text(flags) -> str:
             roots = [f for f in group if "begins upstream" not in f.message]
             inherited = [f.where for f in group if "begins upstream" in f.message]
             for f in roots:
-                lines.append(f"  [{title}] {f.where}: {f.message}")
+                lines.append(f"[{title}] {f.where}: {f.message}")
             if inherited:
-                lines.append(f"  [{title}] also below the fluid rate downstream of the above: "
+                lines.append(f"[{title}] also below the fluid rate downstream of the above: "
                              + ", ".join(inherited))
             continue
         for f in group:
-            lines.append(f"  [{title}] {f.where}: {f.message}")
-    return "\n".join(lines)
+            lines.append(f"[{title}] {f.where}: {f.message}")
+    wrapped = [textwrap.fill(line, width=100, initial_indent="  ", subsequent_indent="      ")
+               for line in lines]
+    return "\n".join([header, *wrapped])
 
 
 def comparison_summary(s: Scenario, c) -> list[str]:
