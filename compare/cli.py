@@ -15,6 +15,7 @@ import traceback
 import warnings
 from typing import Any, Callable, Sequence
 
+from desim import DaskError, StoreError
 from fluid.errors import ScenarioError
 
 from . import commands
@@ -51,6 +52,13 @@ def _simulation_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.add_argument("--max-jobs", type=int, default=None, dest="max_jobs",
                    help="jobs inside the net at which a replication is stopped as unstable")
+    p.add_argument("--dask", metavar="ADDRESS",
+                   help="run replications on a Dask cluster at ADDRESS, or 'local' to start one "
+                   "on this machine (127.0.0.1); needs the dask extra")
+    p.add_argument("--out", metavar="DIR",
+                   help="save each finished replication in DIR as it completes (crash-safe)")
+    p.add_argument("--resume", action="store_true",
+                   help="continue the interrupted run saved in --out DIR")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -154,7 +162,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         else:
             print(outcome.text)
         return outcome.exit_code
-    except (ScenarioError, UsageError, commands.InputError) as exc:
+    except (ScenarioError, UsageError, commands.InputError, StoreError, DaskError) as exc:
         print(str(exc), file=sys.stderr)
         return 2
     except KeyboardInterrupt:

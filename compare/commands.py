@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import os
 import sys
+from contextlib import contextmanager
 from dataclasses import dataclass
 from importlib import resources
 from typing import Any
@@ -92,8 +93,26 @@ def _check_simulation_args(args, s: Scenario) -> dict:
     if getattr(args, "interval", None) is not None and args.interval <= 0:
         raise InputError(f"{cmd}: --interval must be > 0 (got {args.interval:g})")
     workers = args.workers or min(reps, os.cpu_count() or 1)
+    _check_store_args(args)
     return dict(reps=reps, horizon=horizon, warmup=warmup, seed=seed, workers=workers,
-                max_jobs=args.max_jobs)
+                max_jobs=args.max_jobs, out=args.out, resume=args.resume)
+
+
+def _check_store_args(args) -> None:
+    if args.resume and not args.out:
+        raise InputError(f"fluidgap {args.command}: --resume needs --out DIR (the run to continue)")
+
+
+@contextmanager
+def _executor(args):
+    """The Dask executor asked for with --dask, or None (local worker processes)."""
+    if not getattr(args, "dask", None):
+        yield None
+        return
+    from desim import dask_executor
+
+    with dask_executor(args.dask, workers=args.workers) as ex:
+        yield ex
 
 
 class _Progress:
@@ -122,7 +141,8 @@ def simulate(args) -> Outcome:
     opts = _check_simulation_args(args, s)
     progress = _Progress(opts["reps"], args.quiet, "replications")
     try:
-        result = replicate(s, interval=args.interval, progress=progress, **opts)
+        with _executor(args) as ex:
+            result = replicate(s, interval=args.interval, progress=progress, executor=ex, **opts)
     finally:
         progress.close()
     doc = result.to_json()
@@ -142,10 +162,9 @@ def compare_cmd(args) -> Outcome:
     opts = _check_simulation_args(args, s)
     progress = _Progress(opts["reps"], args.quiet, "replications")
     try:
-        result = compare(s, reps=opts["reps"], horizon=opts["horizon"], warmup=opts["warmup"],
-                         seed=opts["seed"], workers=opts["workers"], max_jobs=opts["max_jobs"],
-                         interval=args.interval, progress=progress,
-                         record_waits=args.report is not None)
+        with _executor(args) as ex:
+            result = compare(s, interval=args.interval, progress=progress, executor=ex,
+                             record_waits=args.report is not None, **opts)
     finally:
         progress.close()
     text = render.comparison_text(s, result)
@@ -189,14 +208,17 @@ def station(args) -> Outcome:
     from fluid.loading import parse_override
 
     overrides = dict(parse_override(o) for o in args.overrides) or None
+    _check_store_args(args)
     progress = _Progress(reps, args.quiet, "replications")
     try:
-        result = station_check(
-            args.servers, rate, args.mean_hold, patience_mean=args.patience_mean,
-            hold_cv=args.hold_cv, class_rates=class_rates, within=args.within, reps=reps,
-            horizon=args.horizon, warmup=args.warmup, seed=1 if args.seed is None else args.seed,
-            workers=args.workers or min(reps, os.cpu_count() or 1), progress=progress,
-            _simulate_overrides=overrides)
+        with _executor(args) as ex:
+            result = station_check(
+                args.servers, rate, args.mean_hold, patience_mean=args.patience_mean,
+                hold_cv=args.hold_cv, class_rates=class_rates, within=args.within, reps=reps,
+                horizon=args.horizon, warmup=args.warmup,
+                seed=1 if args.seed is None else args.seed,
+                workers=args.workers or min(reps, os.cpu_count() or 1), progress=progress,
+                _simulate_overrides=overrides, executor=ex, out=args.out, resume=args.resume)
     except ValueError as exc:
         raise InputError(f"{cmd}: {exc}") from None
     finally:
@@ -213,8 +235,6 @@ def station(args) -> Outcome:
 
 
 def scale(args) -> Outcome:
-    from fluid.errors import ScenarioError
-
     from .reports import scale_report
     from .scale import scale_study
 
@@ -224,11 +244,8 @@ def scale(args) -> Outcome:
         raise InputError("fluidgap scale: --factors must be positive numbers")
     progress = _Progress(opts["reps"] * len(args.factors), args.quiet, "replications")
     try:
-        result = scale_study(s, args.factors, reps=opts["reps"], horizon=opts["horizon"],
-                             warmup=opts["warmup"], seed=opts["seed"], workers=opts["workers"],
-                             max_jobs=opts["max_jobs"], progress=progress)
-    except ScenarioError:
-        raise
+        with _executor(args) as ex:
+            result = scale_study(s, args.factors, progress=progress, executor=ex, **opts)
     finally:
         progress.close()
     text = render.scale_text(result)

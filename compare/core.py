@@ -134,7 +134,7 @@ def compare(scenario: Scenario, *, reps: int | None = None, horizon: float | Non
             warmup: float | None = None, seed: int | None = None, workers: int | None = None,
             executor: cf.Executor | None = None, progress: Callable[[], object] | None = None,
             interval: float | None = None, record_waits: bool = False,
-            max_jobs: int | None = None) -> Comparison:
+            max_jobs: int | None = None, out=None, resume: bool = False) -> Comparison:
     """Run ``scenario`` as a fluid model and as ``reps`` simulated replications over
     [0, horizon] measured over [warmup, horizon] (time units; None takes ``scenario.run``), and
     compare them.
@@ -151,7 +151,7 @@ def compare(scenario: Scenario, *, reps: int | None = None, horizon: float | Non
     sim = replicate(windowed, reps=settings.reps, horizon=settings.horizon,
                     warmup=settings.warmup, seed=settings.seed, executor=executor,
                     workers=workers, interval=interval, max_jobs=max_jobs, progress=progress,
-                    record_waits=record_waits)
+                    record_waits=record_waits, out=out, resume=resume)
     gaps = gap_tables(windowed, fluid, sim)
     flags = find_flags(windowed, fluid, sim, gaps)
     transient = None

@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import concurrent.futures as cf
 import math
+import os
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Callable
@@ -187,13 +188,15 @@ def scale_study(scenario: Scenario, factors: Sequence[float] = (1, 2, 4, 8, 16),
                 warmup: float | None = None, seed: int | None = None,
                 workers: int | None = None, executor: cf.Executor | None = None,
                 progress: Callable[[], object] | None = None,
-                max_jobs: int | None = None) -> ScaleResult:
+                max_jobs: int | None = None, out=None, resume: bool = False) -> ScaleResult:
     """Run the fluid model and the simulation of ``scenario`` scaled by each factor (see
     :func:`scale_scenario`) with the same settings and seed, tabulate the gaps and fit their
     decay exponents (see the module docstring). Settings left None come from
     ``scenario.run``; times in the scenario's time unit. ``workers``/``executor``/``max_jobs``
     go to :func:`desim.replicate`; ``progress()`` is called once per finished replication, so
-    ``reps × len(factors)`` times in all."""
+    ``reps × len(factors)`` times in all. ``out``/``resume``: keep every finished replication
+    of factor k in ``out/factor-k`` (see :func:`desim.replicate`)."""
+    out_dir = out
     factors = tuple(float(k) for k in factors)
     if not factors:
         raise ValueError("give at least one scale factor")
@@ -207,7 +210,9 @@ def scale_study(scenario: Scenario, factors: Sequence[float] = (1, 2, 4, 8, 16),
         fluid = throughput(scaled)
         sim = replicate(scaled, reps=settings.reps, horizon=settings.horizon,
                         warmup=settings.warmup, seed=settings.seed, workers=workers,
-                        executor=executor, progress=progress, max_jobs=max_jobs)
+                        executor=executor, progress=progress, max_jobs=max_jobs,
+                        out=None if out_dir is None else os.path.join(out_dir, f"factor-{k:g}"),
+                        resume=resume)
         out = simulated_output(scaled, sim)
         f_out = fluid.output_rate
 

@@ -277,7 +277,8 @@ def station_check(servers: int, arrival_rate: float, mean_hold: float, *,
                   warmup: float | None = None, seed: int = 1, workers: int | None = None,
                   executor: cf.Executor | None = None,
                   progress: Callable[[], object] | None = None, time_unit: str = "min",
-                  _simulate_overrides: Mapping[str, Any] | None = None) -> StationResult:
+                  _simulate_overrides: Mapping[str, Any] | None = None,
+                  out=None, resume: bool = False) -> StationResult:
     """Simulate the single station and check it against the formulas that are exact for it.
 
     ``servers`` agents; Poisson arrivals at ``arrival_rate`` per time unit (split over
@@ -306,7 +307,8 @@ def station_check(servers: int, arrival_rate: float, mean_hold: float, *,
     simulated = scenario if not _simulate_overrides else with_changes(scenario,
                                                                       dict(_simulate_overrides))
     sim = replicate(simulated, reps=reps, horizon=horizon, warmup=warmup, seed=seed,
-                    workers=workers, executor=executor, progress=progress, record_waits=True)
+                    workers=workers, executor=executor, progress=progress, record_waits=True,
+                    out=out, resume=resume)
     places = ["queue"] if classes is None else [f"queue_{k}" for k in range(1, len(classes) + 1)]
     model, formulas, informative, notes = _formulas(
         servers, arrival_rate, mean_hold, patience_mean, hold_cv, classes, within, places)

@@ -10,23 +10,30 @@ Main entry points: :func:`replicate` (many replications -> :class:`SimulationRes
 :func:`run_replication` (one run -> :class:`RunResult`, optionally with an event trace).
 """
 
+from .dask_executor import DaskError, DaskUnavailable, dask_executor
 from .engine import ConservationError, SimulationError
 from .estimate import Estimate
 from .replicate import replicate, run_replications
 from .results import SimulationResult, WarmupSuggestion
 from .run import DEFAULT_MAX_JOBS, RunResult, run_replication, waiting_places
+from .store import RunStore, StoreError
 from .streams import stable_hash, stream_rng
 from .warmup import MserResult, mser5
 
 __all__ = [
     "ConservationError",
+    "DaskError",
+    "DaskUnavailable",
     "DEFAULT_MAX_JOBS",
     "Estimate",
     "MserResult",
     "RunResult",
+    "RunStore",
     "SimulationError",
     "SimulationResult",
+    "StoreError",
     "WarmupSuggestion",
+    "dask_executor",
     "mser5",
     "replicate",
     "run_replication",

@@ -3,33 +3,38 @@
 Replication r of a run with base seed S draws every stream from ``SeedSequence(S, spawn_key=(r,
 ...))`` (see :mod:`desim.streams`), so a replication's numbers depend only on (scenario, S, r):
 identical whichever process runs it and however many workers there are. Results are combined in
-replication order.
+replication order. With an ``out`` directory every replication is saved as it finishes and a
+killed run can be resumed (:mod:`desim.store`).
 """
 
 from __future__ import annotations
 
 import concurrent.futures as cf
 import os
+from pathlib import Path
 from typing import Callable
 
 from fluid.scenario import Scenario
 
 from .results import SimulationResult, summarize
 from .run import RunResult, check_settings, run_replication
+from .store import RunStore
 
 __all__ = ["replicate", "run_replications"]
 
 
-def _collect(futures: list, progress: Callable[[], object] | None) -> list[RunResult]:
+def _collect(futures: list, progress: Callable[[], object] | None,
+             on_result: Callable[[RunResult], object] | None = None) -> list[RunResult]:
     try:
-        if progress is not None:
-            if all(isinstance(f, cf.Future) for f in futures):
-                for f in cf.as_completed(futures):
-                    f.result()  # raise at once if a replication failed
-                    progress()
-            else:  # futures of another kind (e.g. Dask's): report in order
-                for f in futures:
-                    f.result()
+        if progress is not None or on_result is not None:
+            # completion order where possible, so that a saved replication is never held back
+            done = (cf.as_completed(futures) if all(isinstance(f, cf.Future) for f in futures)
+                    else futures)  # futures of another kind: in order
+            for f in done:
+                run = f.result()  # raise at once if a replication failed
+                if on_result is not None:
+                    on_result(run)
+                if progress is not None:
                     progress()
         return [f.result() for f in futures]
     except BaseException:
@@ -40,14 +45,17 @@ def _collect(futures: list, progress: Callable[[], object] | None) -> list[RunRe
 
 def run_replications(scenario: Scenario, replications: range | list[int], *,
                      executor: cf.Executor | None = None, workers: int | None = None,
-                     progress: Callable[[], object] | None = None, **settings) -> list[RunResult]:
+                     progress: Callable[[], object] | None = None,
+                     on_result: Callable[[RunResult], object] | None = None,
+                     **settings) -> list[RunResult]:
     """Run the given replication indices of ``scenario`` (``settings`` are passed to
     :func:`desim.run_replication`) and return their results in the order given.
 
     ``executor``: any executor with ``submit`` (e.g. ``dask.distributed.Client.get_executor()``);
     otherwise a local process pool with ``workers`` processes (None: one per CPU, at most one per
     replication; 1: run here, in this process). ``progress()`` is called once per finished
-    replication."""
+    replication. ``on_result(run)`` is called in this process with each replication as it finishes
+    (in completion order), before ``progress()``."""
     reps = list(replications)
     if executor is None:
         if workers is None:
@@ -58,14 +66,16 @@ def run_replications(scenario: Scenario, replications: range | list[int], *,
             out = []
             for r in reps:
                 out.append(run_replication(scenario, r, **settings))
+                if on_result is not None:
+                    on_result(out[-1])
                 if progress is not None:
                     progress()
             return out
         with cf.ProcessPoolExecutor(max_workers=min(workers, len(reps))) as pool:
             return _collect([pool.submit(run_replication, scenario, r, **settings) for r in reps],
-                            progress)
+                            progress, on_result)
     return _collect([executor.submit(run_replication, scenario, r, **settings) for r in reps],
-                    progress)
+                    progress, on_result)
 
 
 def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | None = None,
@@ -73,7 +83,8 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
               executor: cf.Executor | None = None, workers: int | None = None,
               interval: float | None = None, max_jobs: int | None = None,
               progress: Callable[[], object] | None = None,
-              record_waits: bool = False) -> SimulationResult:
+              record_waits: bool = False, out: str | os.PathLike | None = None,
+              resume: bool = False) -> SimulationResult:
     """Simulate ``reps`` independent replications of ``scenario`` over [0, horizon], measure each
     over [warmup, horizon] and return estimates with 95 % Student t intervals.
 
@@ -82,7 +93,14 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
     do not depend on it. ``interval``: also build per-interval tables of that length (from 0).
     ``max_jobs``: jobs allowed inside a run at once before it is stopped and reported unstable
     (default :data:`desim.run.DEFAULT_MAX_JOBS`). ``progress``: called once per finished
-    replication. ``record_waits``: keep every wait in the window (``result.runs[i].waits``).
+    replication (or read back from ``out``). ``record_waits``: keep every wait in the window
+    (``result.runs[i].waits``).
+
+    ``out``: a run directory (:class:`desim.store.RunStore`); every replication is saved there as
+    it finishes, and the combined result as ``summary.json`` at the end. Without ``resume`` it
+    must be new or empty. ``resume``: reuse the replications already saved in ``out`` (same
+    scenario and settings, else :class:`desim.store.StoreError`) and run only the missing ones;
+    the numbers are identical to an uninterrupted run.
     """
     run = scenario.run
     reps = run.replications if reps is None else int(reps)
@@ -95,7 +113,20 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
         interval=interval, max_jobs=max_jobs, record_waits=record_waits,
     )
     check_settings(settings["horizon"], settings["warmup"], interval, max_jobs)
-    runs = run_replications(scenario, range(reps), executor=executor, workers=workers,
-                            progress=progress, **settings)
-    return summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
-                     steady_state=not scenario.has_time_variation)
+    if resume and out is None:
+        raise ValueError("resume needs the run directory (out) to resume from")
+    store = None if out is None else RunStore.open(Path(out), scenario, settings, resume=resume)
+    saved = {} if store is None else store.load_all(range(reps))
+    if progress is not None:
+        for _ in saved:
+            progress()
+    todo = [r for r in range(reps) if r not in saved]
+    runs = run_replications(scenario, todo, executor=executor, workers=workers,
+                            progress=progress, on_result=None if store is None else store.save,
+                            **settings) if todo else []
+    runs = sorted([*saved.values(), *runs], key=lambda r: r.replication)
+    result = summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
+                       steady_state=not scenario.has_time_variation)
+    if store is not None:
+        store.save_summary(result)
+    return result

@@ -147,3 +147,25 @@ def test_scale_json(capsys):
     doc = json.loads(out)
     assert [row["factor"] for row in doc["table"]] == [1.0, 2.0]
     assert "throughput_shortfall" in doc["fits"]
+
+
+def test_out_and_resume_flags(capsys, tmp_path):
+    cfg = str(ROOT / "configs" / "single-station.yaml")
+    base = ["simulate", cfg, "--reps", "3", "--horizon", "200", "--warmup", "20",
+            "--workers", "1", "--quiet"]
+    code, _, err = run(capsys, *base, "--resume")
+    assert code == 2 and "--resume needs --out" in err
+    code, first, _ = run(capsys, *base, "--out", str(tmp_path / "run"), "--json")
+    assert code == 0
+    code, _, err = run(capsys, *base, "--out", str(tmp_path / "run"))
+    assert code == 2 and "already holds a run" in err
+    code, again, _ = run(capsys, *base, "--out", str(tmp_path / "run"), "--resume", "--json")
+    assert code == 0 and json.loads(again)["places"] == json.loads(first)["places"]
+
+
+def test_unreachable_dask_scheduler_exits_2(capsys):
+    pytest.importorskip("distributed")
+    code, out, err = run(capsys, "simulate", str(ROOT / "configs" / "single-station.yaml"),
+                         "--reps", "2", "--horizon", "100", "--warmup", "10", "--quiet",
+                         "--dask", "tcp://127.0.0.1:9")
+    assert code == 2 and out == "" and "Dask scheduler" in err
