@@ -18,7 +18,7 @@ from typing import Any, Callable, Sequence
 from desim import DaskError, StoreError
 from fluid.errors import ScenarioError
 
-from . import commands
+from . import commands, plans
 
 __all__ = ["main"]
 
@@ -125,6 +125,30 @@ def build_parser() -> argparse.ArgumentParser:
                    help="scale factors for arrival rates and staff (default: 1 2 4 8 16)")
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
     p.set_defaults(handler=commands.scale)
+
+    p = sub.add_parser("phases", help="exact fluid phase diagram over the staff of two pools")
+    _common(p)
+    p.add_argument("--axes", nargs=2, required=True, metavar=("POOL_A", "POOL_B"),
+                   help="the two pools whose staff spans the diagram")
+    p.add_argument("--of", metavar="TRANSITION",
+                   help="the rate drawn (default: the total rate of transitions that end jobs)")
+    p.add_argument("--range", action="append", metavar="POOL=LO:HI",
+                   help="staff range drawn for an axis (repeatable)")
+    p.add_argument("--simulate", action="store_true",
+                   help="overlay simulated gaps at integer staff points (common random numbers)")
+    p.add_argument("--png", metavar="FILE", help="write the diagram as a PNG file")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    _simulation_options(p)
+    p.set_defaults(handler=plans.phases)
+
+    p = sub.add_parser("staff", help="cheapest staffing meeting the targets, fluid then simulated")
+    _common(p)
+    p.add_argument("--cost", action="append", metavar="POOL=C",
+                   help="cost per agent of a pool (default 1; repeatable)")
+    p.add_argument("--fluid-only", action="store_true", dest="fluid_only",
+                   help="stop at the fluid plan (no simulation)")
+    _simulation_options(p)
+    p.set_defaults(handler=plans.staff)
     return parser
 
 

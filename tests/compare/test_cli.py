@@ -169,3 +169,58 @@ def test_unreachable_dask_scheduler_exits_2(capsys):
                          "--reps", "2", "--horizon", "100", "--warmup", "10", "--quiet",
                          "--dask", "tcp://127.0.0.1:9")
     assert code == 2 and out == "" and "Dask scheduler" in err
+
+
+# --- phases and staff ----------------------------------------------------------------------------
+
+TANDEM = """
+name: tandem (test net)
+time_unit: min
+sources: {calls: {rate: 3.0, into: q1}}
+pools: {first: 4, second: 3}
+places:
+  q1: {}
+  s1: {hold: 1.0}
+  q2: {}
+  s2: {hold: 0.5}
+transitions:
+  a1: {in: [q1, first], out: [s1]}
+  d1: {in: [s1], out: [first, q2]}
+  a2: {in: [q2, second], out: [s2]}
+  d2: {in: [s2], out: [second]}
+"""
+
+
+def test_phases_json_pieces_give_the_rate(capsys, tmp_path):
+    path = tmp_path / "tandem.yaml"
+    path.write_text(TANDEM)
+    code, out, err = run(capsys, "phases", str(path), "--axes", "first", "second", "--json",
+                         "--png", str(tmp_path / "p.png"))
+    assert code == 0, err
+    doc = json.loads(out)
+    assert doc["axes"] == ["first", "second"] and doc["of"] == ["d2"]
+    # tandem by hand: rate = min(3, first / 1.0, second / 0.5)
+    for a, b in [(0, 0), (1, 5), (2, 0.5), (10, 10), (2.5, 1.0)]:
+        rate = min(p["const"] + p["coef"]["first"] * a + p["coef"]["second"] * b
+                   for p in doc["pieces"])
+        assert rate == pytest.approx(min(3.0, a / 1.0, b / 0.5), abs=1e-9)
+    assert (tmp_path / "p.png").stat().st_size > 0
+
+
+def test_phases_bad_axes_exit_2(capsys):
+    code, out, err = run(capsys, "phases", DEMO, "--axes", "front_desk", "ghost")
+    assert code == 2 and "not a pool" in err
+
+
+def test_staff_fluid_only_json(capsys):
+    code, out, err = run(capsys, "staff", DEMO, "--fluid-only", "--json", "--quiet")
+    assert code == 0, err
+    doc = json.loads(out)
+    assert {"fluid_plan", "plan", "tried"} <= set(doc)
+    # offered work by hand (see tests/fluid/test_configs_fluid.py): 13.2, 0.6, 5.7 agents
+    assert doc["plan"]["staff"] == {"front_desk": 14, "supervisors": 1, "billing_desk": 6}
+
+
+def test_staff_bad_cost_exit_2(capsys):
+    code, out, err = run(capsys, "staff", DEMO, "--cost", "front_desk=-1", "--fluid-only")
+    assert code == 2 and "--cost expects POOL=C" in err

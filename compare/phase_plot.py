@@ -1,0 +1,431 @@
+"""Phase diagrams drawn, and the simulation laid over them.
+
+:func:`phase_figure` draws a :class:`fluid.phases.PhaseDiagram`: the cell of every exact piece
+filled with the colour of its limiting pools and named in place, the boundaries between cells,
+dotted lines of equal fluid rate, and the scenario's own staff. For a diagram from the counters
+grid (nets with priorities, profiles or schedules) each grid point's square is coloured instead.
+:func:`phase_regions` and :func:`phase_boundaries` give the exact cells (convex polygons) and
+their edges within the drawn ranges. :func:`phase_overlay` simulates the integer staff points of the diagram (the same seed at every
+point, so the points differ by their staff and not by their random numbers: common random
+numbers) and returns a tidy table of the gaps, which :func:`phase_figure` can draw on top.
+
+Figures are :class:`matplotlib.figure.Figure` objects built without pyplot, in the Okabe–Ito
+colours of :mod:`compare.figures`; every colour is doubled by a text label or a marker shape.
+Rates are per the scenario's time unit; staff in agents.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import itertools
+import math
+import os
+import textwrap
+from typing import Callable
+
+import matplotlib as mpl
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.patches import Patch, Polygon, Rectangle
+
+import desim
+from desim import Estimate
+from fluid.counters import integrate_counters
+from fluid.phases import INFLOW, Piece, PhaseDiagram
+from fluid.scenario import Scenario
+from fluid.staffing import with_staff
+
+from .figures import _STYLE, OPTIMISTIC, PESSIMISTIC, REFERENCE, SIMULATED, TARGET
+from .staffing_search import ABANDONMENT, meets_targets, overall_abandonment, target_estimates
+
+__all__ = ["phase_figure", "phase_overlay", "phase_regions", "phase_boundaries"]
+
+# region fills: grey for the inflow, then the Okabe–Ito colours (yellow last: pale on white)
+_REGION_COLOURS = ("#56B4E9", "#E69F00", "#009E73", "#CC79A7", "#0072B2", "#D55E00", "#F0E442")
+_INFLOW_COLOUR = "#BBBBBB"
+
+
+def _colours(labels: list[str]) -> dict[str, str]:
+    out, k = {}, 0
+    for lab in labels:
+        if lab in out:
+            continue
+        if lab == INFLOW:
+            out[lab] = _INFLOW_COLOUR
+        else:
+            out[lab] = _REGION_COLOURS[k % len(_REGION_COLOURS)]
+            k += 1
+    return out
+
+
+
+# --- exact regions and boundaries (LP method) ----------------------------------------------------
+
+
+def phase_regions(diagram: PhaseDiagram) -> list[tuple[int, np.ndarray]]:
+    """(piece index, polygon vertices as an (n, 2) array) of every piece's cell within the
+    diagram's drawn ranges (cells with no area there left out). LP method only."""
+    if diagram.method != "lp":
+        raise ValueError("a counters-grid diagram has no exact regions")
+    a0, a1, b0, b1 = diagram.box()
+    square = [(a0, b0), (a1, b0), (a1, b1), (a0, b1)]
+    out = []
+    for i, p in enumerate(diagram.pieces):
+        poly = square
+        for j, q in enumerate(diagram.pieces):
+            if j != i:
+                poly = _clip(poly, _difference(p, q))
+            if len(poly) < 3:
+                break
+        if len(poly) >= 3 and _polygon_area(np.array(poly)) > 1e-12 * (a1 - a0) * (b1 - b0):
+            out.append((i, np.array(poly)))
+    return out
+
+
+def phase_boundaries(diagram: PhaseDiagram) -> list[tuple[int, int, np.ndarray]]:
+    """(piece i, piece j, 2×2 array of end points) of every boundary segment between two cells
+    within the diagram's drawn ranges. LP method only."""
+    cells = dict(phase_regions(diagram))
+    a0, a1, b0, b1 = diagram.box()
+    tol = 1e-9 * max(a1 - a0, b1 - b0)
+    out = []
+    for i, j in itertools.combinations(sorted(cells), 2):
+        seg = _shared_edge(cells[i], cells[j], tol)
+        if seg is not None:
+            out.append((i, j, seg))
+    return out
+
+
+def _difference(p: Piece, q: Piece) -> tuple[float, float, float]:
+    """(c, ka, kb) with p ≤ q ⇔ c + ka·a + kb·b ≤ 0."""
+    (pa, pb), (qa, qb) = p.coef.values(), q.coef.values()
+    return p.const - q.const, pa - qa, pb - qb
+
+
+def _clip(poly, half) -> list:
+    """Sutherland–Hodgman: the part of the convex polygon ``poly`` where c + ka·x + kb·y ≤ 0."""
+    c, ka, kb = half
+    scale = abs(c) + abs(ka) + abs(kb) + 1e-300
+    tol = 1e-12 * scale
+
+    def side(pt):
+        return c + ka * pt[0] + kb * pt[1]
+
+    out = []
+    n = len(poly)
+    for k in range(n):
+        cur, nxt = poly[k], poly[(k + 1) % n]
+        sc, sn = side(cur), side(nxt)
+        if sc <= tol:
+            out.append(cur)
+        if (sc < -tol and sn > tol) or (sc > tol and sn < -tol):
+            t = sc / (sc - sn)
+            out.append((cur[0] + t * (nxt[0] - cur[0]), cur[1] + t * (nxt[1] - cur[1])))
+    return out
+
+
+def _shared_edge(p: np.ndarray, q: np.ndarray, tol: float):
+    """The segment two convex polygons share (their boundaries meet along it), or None."""
+    pts = [v for v in p if _on_boundary(v, q, tol)] + [v for v in q if _on_boundary(v, p, tol)]
+    if len(pts) < 2:
+        return None
+    pts = np.array(pts)
+    d = pts - pts[0]
+    k = int(np.argmax(np.hypot(d[:, 0], d[:, 1])))
+    far = pts[k]
+    m = int(np.argmax(np.hypot(*(pts - far).T)))
+    seg = np.array([far, pts[m]])
+    if np.hypot(*(seg[1] - seg[0])) <= tol:
+        return None
+    return seg
+
+
+def _on_boundary(v, poly: np.ndarray, tol: float) -> bool:
+    n = len(poly)
+    for k in range(n):
+        a, b = poly[k], poly[(k + 1) % n]
+        ab = b - a
+        length = float(np.hypot(*ab))
+        if length == 0:
+            continue
+        t = float(np.dot(v - a, ab)) / length**2
+        if -1e-9 <= t <= 1 + 1e-9 and float(np.hypot(*(a + t * ab - v))) <= tol:
+            return True
+    return False
+
+
+def _polygon_area(poly: np.ndarray) -> float:
+    x, y = poly[:, 0], poly[:, 1]
+    return 0.5 * abs(float(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))))
+
+
+# --- the figure ----------------------------------------------------------------------------------
+
+
+def phase_figure(diagram: PhaseDiagram, *, overlay: pd.DataFrame | None = None,
+                 title: str | None = None) -> Figure:
+    """Draw ``diagram`` (regions by limiting pools, boundaries, lines of equal fluid rate, the
+    scenario's staff as a black star). ``overlay``: the table of :func:`phase_overlay`; its
+    points are drawn on top, sized by the relative throughput gap |fluid − simulated| /
+    simulated, as vermillion triangles where the fluid is optimistic (above the simulated
+    interval of the rate) and blue circles elsewhere. When the overlay has
+    service levels a second panel shows, per point, whether every target (service levels and
+    abandonment) is met with confidence (green square) or not (vermillion cross), with the worst
+    simulated service level written beside it."""
+    a_name, b_name = diagram.axes
+    with_sl = overlay is not None and any(c.endswith("_sl_low") for c in overlay.columns)
+    ncols = 2 if with_sl else 1
+    with mpl.rc_context(_STYLE):
+        fig = Figure(figsize=(6.6 * ncols, 5.4), layout="constrained")
+        axes = fig.subplots(1, ncols, squeeze=False)[0]
+        for ax in axes:
+            handles = _draw_diagram(ax, diagram)
+            ax.set_xlabel(f"{a_name} (agents)")
+            ax.set_ylabel(f"{b_name} (agents)")
+        if overlay is not None and len(overlay):
+            handles += _draw_gaps(axes[0], overlay)
+            if with_sl:
+                handles += _draw_service_levels(axes[1], overlay)
+                axes[1].set_title("simulated targets (worst service level written)", pad=10)
+        axes[0].set_title(f"{diagram.of_label or 'rate'} per {diagram.time_unit}"
+                          + (" with simulated gaps" if overlay is not None else ""), pad=10)
+        fig.legend(handles=handles, loc="outside lower center", ncols=2 * ncols, frameon=False)
+        method = ("exact fluid phase diagram (LP pieces)" if diagram.method == "lp"
+                  else "fluid phase diagram from the counter equations at grid points")
+        # long scenario names wrap rather than run off the figure
+        fig.suptitle(textwrap.fill(title or f"{diagram.scenario_name}: {method}", width=70))
+    return fig
+
+
+def _draw_diagram(ax, diagram: PhaseDiagram) -> list:
+    a0, a1, b0, b1 = diagram.box()
+    ax.set_xlim(a0, a1)
+    ax.set_ylim(b0, b1)
+    ax.grid(False)
+    if diagram.method == "lp":
+        regions = phase_regions(diagram)
+        labels = [diagram.pieces[i].label for i, _ in regions]
+        colours = _colours(labels)
+        area = (a1 - a0) * (b1 - b0)
+        for i, poly in regions:
+            label = diagram.pieces[i].label
+            ax.add_patch(Polygon(poly, closed=True, facecolor=colours[label], alpha=0.45, lw=0,
+                                 zorder=0))
+            if _polygon_area(poly) > 0.02 * area:
+                cx, cy = poly.mean(axis=0)
+                ax.text(cx, cy, label.replace("+", "+\n"), ha="center", va="center", fontsize=8,
+                        color="#222222", zorder=4,
+                        bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.7))
+        for _, _, seg in phase_boundaries(diagram):
+            ax.plot(seg[:, 0], seg[:, 1], color="black", lw=1.3, zorder=2)
+        aa, bb = np.meshgrid(np.linspace(a0, a1, 201), np.linspace(b0, b1, 201))
+        rate = diagram.rate_at(aa, bb)
+    else:
+        labels = [g.label for g in diagram.grid]
+        colours = _colours(labels)
+        a_vals = sorted({g.a for g in diagram.grid})
+        b_vals = sorted({g.b for g in diagram.grid})
+        da = (a_vals[1] - a_vals[0]) if len(a_vals) > 1 else 1.0
+        db = (b_vals[1] - b_vals[0]) if len(b_vals) > 1 else 1.0
+        for g in diagram.grid:
+            ax.add_patch(Rectangle((g.a - da / 2, g.b - db / 2), da, db,
+                                   facecolor=colours[g.label], alpha=0.45, lw=0, zorder=0))
+        ax.set_xlim(a0 - da / 2, a1 + da / 2)
+        ax.set_ylim(b0 - db / 2, b1 + db / 2)
+        for label in colours:  # name each label once, at the middle of its points
+            pts = np.array([(g.a, g.b) for g in diagram.grid if g.label == label], dtype=float)
+            centre = pts[np.argmin(np.hypot(*(pts - pts.mean(axis=0)).T))]
+            ax.text(*centre, label.replace("+", "+\n"), ha="center", va="center", fontsize=8,
+                    zorder=4, bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none",
+                                        alpha=0.7))
+        aa, bb, rate = None, None, None
+        if len(a_vals) > 1 and len(b_vals) > 1:
+            aa, bb = np.meshgrid(a_vals, b_vals)
+            rate = diagram.rate_at(aa, bb)
+    handles = [Patch(facecolor=c, alpha=0.45, label=f"limited by {lab}" if lab != INFLOW
+                     else "limited by the inflow") for lab, c in colours.items()]
+    if rate is not None and np.ptp(rate) > 1e-9 * max(1.0, float(np.max(np.abs(rate)))):
+        cs = ax.contour(aa, bb, rate, levels=6, colors=REFERENCE, linewidths=0.7,
+                        linestyles=":", zorder=1)
+        ax.clabel(cs, fmt="%.3g", fontsize=7)
+        handles.append(Line2D([], [], color=REFERENCE, ls=":", lw=0.7,
+                              label=f"equal fluid rate (per {diagram.time_unit})"))
+    s = diagram.staff
+    ax.scatter([s[diagram.axes[0]]], [s[diagram.axes[1]]], marker="*", s=160, color="black",
+               zorder=5, clip_on=False)
+    handles.append(Line2D([], [], marker="*", color="black", ls="", ms=11,
+                          label="scenario's staff"))
+    return handles
+
+
+def _marker_size(gap):
+    # area ∝ |gap|, capped at a 30 % gap so one extreme point does not hide the rest
+    return 12 + 1600 * np.minimum(np.abs(np.nan_to_num(gap)), 0.3)
+
+
+def _text_place(ax, a: float, b: float) -> dict:
+    """Where a marker's text goes: up and right of it, but kept inside the axes at the top and
+    right edges (keyword arguments for ``annotate``)."""
+    (a0, a1), (b0, b1) = ax.get_xlim(), ax.get_ylim()
+    right = a > a1 - 0.06 * (a1 - a0)
+    top = b > b1 - 0.06 * (b1 - b0)
+    return dict(xytext=(-6 if right else 5, -6 if top else 5), textcoords="offset points",
+                ha="right" if right else "left", va="top" if top else "bottom")
+
+
+def _draw_gaps(ax, overlay: pd.DataFrame) -> list:
+    opt = overlay["optimistic"].to_numpy(bool)
+    size = _marker_size(overlay["gap"].to_numpy(float))
+    a, b = overlay["a"].to_numpy(float), overlay["b"].to_numpy(float)
+    ax.scatter(a[~opt], b[~opt], s=size[~opt], marker="o", facecolor="none",
+               edgecolor=SIMULATED, lw=1.3, zorder=6)
+    ax.scatter(a[opt], b[opt], s=size[opt], marker="^", color=OPTIMISTIC, edgecolor="black",
+               lw=0.5, zorder=6)
+    if len(overlay) <= 36:
+        for ai, bi, g in zip(a, b, overlay["gap"].to_numpy(float)):
+            if math.isfinite(g):
+                ax.annotate(f"{g:+.0%}", (ai, bi), fontsize=7, zorder=7,
+                            **_text_place(ax, ai, bi))
+    handles = [Line2D([], [], marker="^", color=OPTIMISTIC, mec="black", ls="", ms=8,
+                      label="fluid optimistic (above the simulated interval)"),
+               Line2D([], [], marker="o", mfc="none", mec=SIMULATED, ls="", ms=8,
+                      label="fluid inside or below the simulated interval")]
+    for g in (0.01, 0.05, 0.2):
+        handles.append(Line2D([], [], marker="o", mfc="none", mec=REFERENCE, ls="",
+                              ms=math.sqrt(_marker_size(g)), label=f"gap {g:.0%}"))
+    return handles
+
+
+def _draw_service_levels(ax, overlay: pd.DataFrame) -> list:
+    places = [c[: -len("_sl_low")] for c in overlay.columns if c.endswith("_sl_low")]
+    a, b = overlay["a"].to_numpy(float), overlay["b"].to_numpy(float)
+    meets = overlay["targets_met"].to_numpy(bool)
+    ax.scatter(a[meets], b[meets], marker="s", s=40, color=PESSIMISTIC, edgecolor="black",
+               lw=0.5, zorder=6)
+    ax.scatter(a[~meets], b[~meets], marker="X", s=45, color=OPTIMISTIC, zorder=6)
+    worst = overlay[[f"{p}_sl_mean" for p in places]].min(axis=1).to_numpy(float)
+    if len(overlay) <= 60:
+        for ai, bi, w in zip(a, b, worst):
+            if math.isfinite(w):
+                ax.annotate(f"{w:.0%}", (ai, bi), fontsize=7, color=TARGET, zorder=7,
+                            **_text_place(ax, ai, bi))
+    return [Line2D([], [], marker="s", color=PESSIMISTIC, mec="black", ls="", ms=7,
+                   label="every target met with confidence"),
+            Line2D([], [], marker="X", color=OPTIMISTIC, ls="", ms=7,
+                   label="some target missed (worst service level written)")]
+
+
+# --- the simulated overlay -----------------------------------------------------------------------
+
+
+def _integer_points(diagram: PhaseDiagram, max_points: int) -> list[tuple[int, int]]:
+    (a0, a1), (b0, b1) = (diagram.ranges[p] for p in diagram.axes)
+    a_vals = list(range(math.ceil(a0), math.floor(a1) + 1))
+    b_vals = list(range(math.ceil(b0), math.floor(b1) + 1))
+    if not a_vals or not b_vals:
+        raise ValueError("the diagram's ranges hold no whole staff level")
+    while len(a_vals) * len(b_vals) > max_points:
+        # thin the longer axis, keeping both ends
+        if len(a_vals) >= len(b_vals) and len(a_vals) > 2:
+            a_vals = a_vals[::2] + ([a_vals[-1]] if a_vals[::2][-1] != a_vals[-1] else [])
+        elif len(b_vals) > 2:
+            b_vals = b_vals[::2] + ([b_vals[-1]] if b_vals[::2][-1] != b_vals[-1] else [])
+        else:
+            break
+    return [(a, b) for a in a_vals for b in b_vals]
+
+
+def _fluid_service_levels(scenario: Scenario) -> dict[str, float]:
+    """The fluid model's service level at every place with a target (patience ignored): 1 when
+    its fluid queue stays empty over the statistics window (every job taken at once); 0 when the
+    queue grows without bound (constant rates) or holds so much that every job waits longer than
+    the target's ``within`` (Little's law on the fluid queue); nan otherwise (a queue that
+    builds and drains within a day)."""
+    timed = scenario.has_time_variation
+    sol = integrate_counters(scenario, **({"horizon": scenario.run.horizon} if timed else {}))
+    out = {}
+    for place, target in scenario.targets.service.items():
+        w = sol.waiting[place]
+        tail = w[int(round(scenario.run.warmup / sol.dt)):] if timed else w[len(w) // 2:]
+        inflow = sum(sol.rates[q] for q in scenario.inputs_of(place))
+        inflow += sum(sol.source_rates[s] for s in scenario.sources_into(place))
+        tol = 1e-6 * (1.0 + inflow * sol.dt)
+        taken = sum(sol.rates[q] for q in scenario.outputs_of(place))
+        if tail.size == 0 or float(np.max(tail)) <= tol:
+            out[place] = 1.0
+        elif not timed and (tail[-1] - tail[len(tail) // 2] > tol
+                            or (taken > 0 and float(tail[-1]) / taken > target.within)):
+            out[place] = 0.0
+        else:
+            out[place] = math.nan
+    return out
+
+
+def phase_overlay(scenario: Scenario, diagram: PhaseDiagram, *, reps: int,
+                  horizon: float | None = None, warmup: float | None = None,
+                  seed: int | None = None, workers: int | None = None,
+                  executor: cf.Executor | None = None,
+                  progress: Callable[[], object] | None = None,
+                  max_points: int = 49, out=None, resume: bool = False) -> pd.DataFrame:
+    """Simulate the integer staff points of ``diagram`` (thinned to at most ``max_points``,
+    keeping the ends of each axis) with ``reps`` replications each, the same ``seed`` at every
+    point (common random numbers), the other pools at the scenario's staff.
+
+    Returns one row per point: a, b (staff of the two axes), fluid_rate and the simulated rate of
+    the diagram's transitions (sim_mean, sim_low, sim_high, n; per the scenario's time unit),
+    gap = (fluid − simulated mean) / simulated mean, rate_optimistic and optimistic (the fluid
+    rate above the simulated interval); for every place with a service-level target:
+    ``<place>_sl_fluid`` (see :func:`_fluid_service_levels`), ``<place>_sl_mean``, ``_sl_low``,
+    ``_sl_high`` and ``_sl_goal``; sl_optimistic (some fluid service level above its simulated
+    interval); targets_met (every target holds with confidence, as in
+    :func:`compare.staffing_search.meets_targets`; nan without targets);
+    abandonment_mean/_low/_high (all sources); unstable (replications stopped at the job limit).
+    ``executor``/``workers`` as in :func:`desim.replicate` (one local process pool is made and
+    shared by all points when neither is given); ``out``/``resume``: keep each point's
+    replications in ``out/<a><A>-<b><B>`` (see :func:`desim.replicate`)."""
+    points = _integer_points(diagram, max_points)
+    targets = scenario.targets.service
+    own_pool = None
+    if executor is None and (workers is None or workers > 1):
+        n = workers or min(reps, os.cpu_count() or 1)
+        if n > 1 and reps > 1:
+            own_pool = cf.ProcessPoolExecutor(max_workers=n)
+    pool = executor or own_pool
+    rows = []
+    try:
+        for a, b in points:
+            variant = with_staff(scenario, {diagram.axes[0]: a, diagram.axes[1]: b})
+            sim = desim.replicate(variant, reps=reps, horizon=horizon, warmup=warmup, seed=seed,
+                                  executor=pool, workers=1 if pool is None else None,
+                                  progress=progress,
+                                  out=None if out is None else os.path.join(
+                                      out, f"{diagram.axes[0]}{a}-{diagram.axes[1]}{b}"),
+                                  resume=resume)
+            rate = Estimate.from_values(sum(sim.raw("transition", q, "rate") for q in diagram.of))
+            fluid = float(diagram.rate_at(a, b))
+            gap = (fluid - rate.mean) / rate.mean if rate.mean else math.nan
+            row = dict(a=a, b=b, fluid_rate=fluid, sim_mean=rate.mean, sim_low=rate.low,
+                       sim_high=rate.high, n=rate.n, gap=gap,
+                       rate_optimistic=bool(math.isfinite(rate.high) and fluid > rate.high))
+            estimates = target_estimates(scenario, sim)
+            fluid_sl = _fluid_service_levels(variant)
+            sl_opt = False
+            for place, target in targets.items():
+                est, fl = estimates[place], fluid_sl[place]
+                row |= {f"{place}_sl_fluid": fl, f"{place}_sl_mean": est.mean,
+                        f"{place}_sl_low": est.low, f"{place}_sl_high": est.high,
+                        f"{place}_sl_goal": target.goal}
+                sl_opt |= bool(math.isfinite(fl) and math.isfinite(est.high) and fl > est.high)
+            ab = estimates.get(ABANDONMENT) or overall_abandonment(sim)
+            met = meets_targets(scenario, estimates) and not sim.unstable_replications
+            row |= dict(targets_met=met if estimates else math.nan, sl_optimistic=sl_opt,
+                        optimistic=row["rate_optimistic"],
+                        abandonment_mean=ab.mean, abandonment_low=ab.low,
+                        abandonment_high=ab.high, unstable=sim.unstable_replications)
+            rows.append(row)
+    finally:
+        if own_pool is not None:
+            own_pool.shutdown()
+    return pd.DataFrame(rows)
