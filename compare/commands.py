@@ -150,8 +150,15 @@ def simulate(args) -> Outcome:
     return Outcome(text=render.simulation_text(s, result) + "\n\n" + CAUTION, json=doc)
 
 
-def _report_note(files) -> str:
-    return f"report written to {files.html}"
+def _finish(args, text: str, doc: dict, write_report) -> Outcome:
+    """Add the caution, and write the report when ``--report DIR`` was given
+    (``write_report(directory)`` returns the files written)."""
+    doc["caution"] = CAUTION
+    if args.report:
+        files = write_report(args.report)
+        text += f"\n\nreport written to {files.html}"
+        doc["report"] = str(files.html)
+    return Outcome(text=text + "\n\n" + CAUTION, json=doc)
 
 
 def compare_cmd(args) -> Outcome:
@@ -167,15 +174,9 @@ def compare_cmd(args) -> Outcome:
                              record_waits=args.report is not None, **opts)
     finally:
         progress.close()
-    text = render.comparison_text(s, result)
-    doc = result.to_json()
-    doc["caution"] = CAUTION
-    if args.report:
-        files = comparison_report(args.report, result, s, caution=CAUTION,
-                                  summary=render.comparison_summary(s, result))
-        text += "\n\n" + _report_note(files)
-        doc["report"] = str(files.html)
-    return Outcome(text=text + "\n\n" + CAUTION, json=doc)
+    return _finish(args, render.comparison_text(s, result), result.to_json(),
+                   lambda d: comparison_report(d, result, s, caution=CAUTION,
+                                               summary=render.comparison_summary(s, result)))
 
 
 def station(args) -> Outcome:
@@ -223,15 +224,9 @@ def station(args) -> Outcome:
         raise InputError(f"{cmd}: {exc}") from None
     finally:
         progress.close()
-    text = render.station_text(result)
-    doc = result.to_json()
-    doc["caution"] = CAUTION
-    if args.report:
-        files = station_report(args.report, result, caution=CAUTION,
-                               summary=render.station_summary(result))
-        text += "\n\n" + _report_note(files)
-        doc["report"] = str(files.html)
-    return Outcome(text=text + "\n\n" + CAUTION, json=doc)
+    return _finish(args, render.station_text(result), result.to_json(),
+                   lambda d: station_report(d, result, caution=CAUTION,
+                                            summary=render.station_summary(result)))
 
 
 def scale(args) -> Outcome:
@@ -248,12 +243,6 @@ def scale(args) -> Outcome:
             result = scale_study(s, args.factors, progress=progress, executor=ex, **opts)
     finally:
         progress.close()
-    text = render.scale_text(result)
-    doc = result.to_json()
-    doc["caution"] = CAUTION
-    if args.report:
-        files = scale_report(args.report, result, caution=CAUTION,
-                             summary=render.scale_summary(result))
-        text += "\n\n" + _report_note(files)
-        doc["report"] = str(files.html)
-    return Outcome(text=text + "\n\n" + CAUTION, json=doc)
+    return _finish(args, render.scale_text(result), result.to_json(),
+                   lambda d: scale_report(d, result, caution=CAUTION,
+                                          summary=render.scale_summary(result)))
