@@ -293,7 +293,7 @@ def comparison_text(s: Scenario, c) -> str:
         parts.append(format_table(["interval", "metric", "where", "fluid",
                                    "simulated [95 % interval]"], rows,
                                   title=f"per interval ({unit}):"))
-    notes = list(c.notes) + list(c.simulation.warnings)
+    notes = list(c.notes)  # (they carry the simulation's warnings too)
     if notes:
         parts.append("\n".join(f"note: {n}" for n in notes))
     return "\n\n".join(parts)
