@@ -353,7 +353,14 @@ def scale_text(r) -> str:
                 v = (f"{fmt(v, 3)} [{fmt(rec[c + '_low'], 3)}, {fmt(rec[c + '_high'], 3)}]")
             row.append(v if isinstance(v, str) else fmt(v, 4))
         rows.append(row)
-    parts = ["\n".join(scale_summary(r)), format_table(cols, rows)]
+    heads = {"throughput_shortfall": "throughput shortfall [95 % interval]",
+             "abandonment_gap": "abandonment gap [95 % interval]",
+             "max_transition_gap": "largest transition gap (of the means)",
+             "fluid_output": "fluid output", "max_load": "largest load",
+             "unstable_replications": "unstable reps"}
+    parts = ["\n".join(scale_summary(r)),
+             format_table([heads.get(c, c) for c in cols], rows,
+                          title=f"per factor ({r.replications} replications each):")]
     if r.notes:
         parts.append("\n".join(f"note: {n}" for n in r.notes))
     return "\n\n".join(parts)
