@@ -49,7 +49,6 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
-import numpy as np
 import pandas as pd
 
 from desim import Estimate, SimulationResult, replicate
@@ -261,13 +260,9 @@ def _check_inputs(servers, arrival_rate, mean_hold, patience_mean, hold_cv, hold
 
 
 def _p_wait(sim: SimulationResult, place: str) -> Estimate:
-    """Share of positive waits among the waits recorded in the window, per replication."""
-    values = []
-    for run in sim.runs:
-        w = run.waits[place]
-        allw = np.concatenate([w["taken"], w["abandoned"]])
-        values.append(float((allw > 0).mean()) if allw.size else math.nan)
-    return Estimate.from_values(values)
+    """P(W > 0): the share of jobs not taken the instant they became available (desim's
+    ``delayed``), per replication."""
+    return sim.places[place]["delayed"]
 
 
 def station_check(servers: int, arrival_rate: float, mean_hold: float, *,

@@ -1,8 +1,11 @@
-"""The event engine: executes a scenario's net on SimPy's event queue with callbacks.
+"""The event engine: executes a scenario's net with callbacks on SimPy's event queue.
 
 There is no generator process per job. Arrivals, ends of holds, patience deadlines, staffing
-changes and statistics snapshots are SimPy events whose callbacks change the marking; firing is
-done by :meth:`Engine._settle`. Semantics (design.md §4.2):
+changes and statistics snapshots are entries ``(time, priority, eid, item)`` of the queue of a
+:class:`simpy.Environment`, in SimPy's order (time, priority, then the environment's own event
+counter). :meth:`Engine.run` pops them in a loop of its own, equivalent to ``env.run(until)``;
+the items are the engine's small objects (not SimPy events), so only it can process them.
+Semantics (design.md §4.2):
 
 * A job entering a place with ``hold`` becomes available after an independent draw; a routed
   place draws the job's output transition at entry (preselection) and keeps one FIFO per output.
@@ -13,32 +16,43 @@ done by :meth:`Engine._settle`. Semantics (design.md §4.2):
   take no agents first (see :func:`desim.net.transition_order`). So priorities hold even between
   tokens that appear at the same instant.
 * Patience: every place with patience has a heap of (deadline, stamp, job) with lazy deletion and
-  one armed SimPy timer (priority after normal events, so a job with patience 0 is taken if it
-  can be at that instant, else it leaves). A timer carries a generation number and acts only if
-  it is the current one, and a heap entry acts only if the job's stamp still matches: nothing
-  stale can touch a later token. Stale entries are purged when they exceed twice the live ones.
+  one armed :class:`~desim.net.PatienceTimer` (after normal events of its instant, so a job with
+  patience 0 is taken if it can be at that instant, else it leaves). A timer acts only if its
+  generation is the place's current one, a heap entry only if the job's stamp still matches:
+  nothing stale can touch a later token. Stale heap entries are purged when they exceed twice the
+  live ones; superseded timers are dropped from the event queue when they exceed twice the jobs
+  waiting at their place plus :data:`STALE_TIMER_SLACK`.
 * Staffing schedules: an increase adds idle agents at the boundary; a cut removes idle agents at
   once and the rest as busy agents return.
+
+Shortcuts do exactly what the general path would (same draws in the same order, same event
+order, same floating-point sums): when nothing is pending and no other event shares the instant,
+a token that becomes available is offered to the one transition its FIFO feeds
+(:meth:`Engine._offer`), and taken without entering the FIFO when it can be
+(:meth:`Engine._take_at_once`, inline in :meth:`Engine.run` for the end of a hold and for an
+arrival into a queue served by one pool). Job objects are reused once their job has ended.
 
 All times are in the scenario's time unit.
 """
 
 from __future__ import annotations
 
-import heapq
 from bisect import bisect_right
+from heapq import heapify, heappop, heappush
+from itertools import count
 
 import simpy
-from simpy.events import Event
 
-from .net import INF, Net, PlaceState, PoolState
+from .net import INF, Job, Net, PatienceTimer, PlaceState, SourceState
 
-__all__ = ["Engine", "JobLimitReached", "ConservationError", "SimulationError"]
+__all__ = ["Engine", "ConservationError", "SimulationError", "PatienceTimer", "STALE_TIMER_SLACK"]
 
-_FIRST = 0  # snapshots: before anything else at the same instant
+_FIRST = 0  # snapshots and the end of a run (SimPy's URGENT): before the rest of an instant
 _NORMAL = 1
 _LATE = 2  # after every normal event at the same instant (patience deadlines)
-_heappush, _heappop = heapq.heappush, heapq.heappop
+
+#: Superseded patience timers of a place allowed in the event queue beyond twice its jobs waiting.
+STALE_TIMER_SLACK = 16
 
 
 class SimulationError(RuntimeError):
@@ -49,163 +63,275 @@ class ConservationError(SimulationError):
     """arrivals != completed + abandoned + inside at the end of a run."""
 
 
-class JobLimitReached(Exception):
-    """Raised inside a run when more than ``max_jobs`` jobs are inside at once (an unstable net)."""
+class _Hook:
+    __slots__ = ("callback",)
+
+    def __init__(self, callback):
+        self.callback = callback
+
+    def act(self, engine: "Engine", now: float) -> None:
+        self.callback(engine)
 
 
-class _Timer(Event):
-    """A SimPy event scheduled after ``delay`` at a given priority, with one callback."""
+class _Restaff:
+    __slots__ = ("pool", "staff")
 
-    def __init__(self, env, delay, callback, value, priority=_NORMAL):
-        self.env = env
-        self.callbacks = [callback]
-        self._value = value
-        self._ok = True
-        env.schedule(self, priority, delay)
+    def __init__(self, pool, staff: int):
+        self.pool = pool
+        self.staff = staff
+
+    def act(self, engine: "Engine", now: float) -> None:
+        engine.pending |= self.pool.restaff(self.staff, now)
 
 
-class _Job:
-    """One job: its record and where it currently is. ``stamp`` identifies its current stay as
-    an available token (-1 when it is not available anywhere)."""
+class _Stop:
+    """The end of :meth:`Engine.run`."""
 
-    __slots__ = ("id", "source", "arrival", "stamp", "avail", "fifo", "waited")
-
-    def __init__(self, id, source, arrival):
-        self.id = id
-        self.source = source
-        self.arrival = arrival
-        self.stamp = -1
-        self.avail = 0.0
-        self.fifo = None
-        self.waited = 0.0  # total time available-and-waiting over all places
+    __slots__ = ()
 
 
 class Engine:
     """One run of a :class:`~desim.net.Net` on a fresh SimPy environment.
 
-    ``max_jobs``: the run stops (raising :class:`JobLimitReached` out of :meth:`run`'s loop, caught
-    by :meth:`run`) when an arrival would make more jobs inside than this. ``trace``: a list that
-    collects ``(time, what, name, job_id)`` for every arrival ("arrive", source), firing ("fire",
-    transition) and abandonment ("abandon", place); None (the default) records nothing.
-    ``records``: a list collecting job records ``(id, source, arrival, end, outcome)`` with
-    outcome ``"completed:<transition>"`` or ``"abandoned:<place>"``, or None.
+    ``max_jobs``: the run stops (setting ``unstable``) when an arrival would make more jobs inside
+    than this. ``trace``: a list that collects ``(time, what, name, job_id)`` for every arrival
+    ("arrive", source), firing ("fire", transition) and abandonment ("abandon", place); None (the
+    default) records nothing. ``records``: a list collecting job records ``(id, source, arrival,
+    end, outcome)`` with outcome ``"completed:<transition>"`` or ``"abandoned:<place>"``, or None.
+    ``warmup``: waits are recorded (with ``record_waits`` nets) from this time on.
     """
 
     def __init__(self, net: Net, *, max_jobs: int = 1_000_000, trace: list | None = None,
                  records: list | None = None, warmup: float = 0.0):
         self.net = net
         self.env = simpy.Environment()
+        self.queue = self.env._queue  # SimPy's heap of (time, priority, eid, item)
+        self.eid = self.env._eid  # SimPy's counter of scheduled events
         self.max_jobs = max_jobs
         self.trace = trace
         self.records = records
         self.warmup = warmup
         self.pending = 0  # bits (by rank) of transitions that may have become enabled
         self.stamp = 0
-        self.next_id = 0
+        self.ids = count()  # job ids, in order of arrival
+        self.spare: list[Job] = []  # job objects of ended jobs, for reuse
         self.alive = 0
         self.completed = 0
         self.abandoned = 0
         self.trans = net.transitions
         self.unstable = False
+        self.timed_places = tuple(p for p in net.places.values() if p.patience is not None)
+        self.dropped_timers = 0  # superseded patience timers removed from the event queue
 
     # --- running ----------------------------------------------------------------------------------
 
+    def _push(self, time: float, priority: int, item) -> None:
+        heappush(self.queue, (time, priority, next(self.eid), item))
+
     def start(self) -> None:
         """Schedule the first arrival of every source and the staffing boundaries."""
-        env = self.env
+        now = self.env.now
         for src in self.net.sources.values():
             t = src.next_time(0.0)
             if t < INF:
-                _Timer(env, t, self._on_arrival, src)
+                self._push(now + (t - now), _NORMAL, src)
         for pool in self.net.pools.values():
             sched = pool.schedule
             if sched is not None:
                 for i in range(1, len(sched.staff)):
-                    _Timer(env, i * sched.step, self._on_schedule, (pool, sched.staff[i]))
+                    self._push(now + i * sched.step, _NORMAL, _Restaff(pool, sched.staff[i]))
 
     def at(self, time: float, callback) -> None:
         """Call ``callback(engine)`` at ``time``, before any other event of that instant (so a
         snapshot at t counts what happens at t in the period that starts at t)."""
-        _Timer(self.env, time - self.env.now, self._on_hook, callback, _FIRST)
+        now = self.env.now
+        self._push(now + (time - now), _FIRST, _Hook(callback))
 
     def run(self, until: float) -> float:
-        """Run to ``until`` (or until the job limit); return the time the run ended."""
-        try:
-            self.env.run(until=until)
-        except JobLimitReached:
-            self.unstable = True
-        return self.env.now
+        """Run to ``until`` (or until the job limit); return the time the run ended.
 
-    # --- callbacks (each ends by settling if nothing else happens at this instant) -----------------
-
-    def _on_arrival(self, ev) -> None:
-        src = ev._value
+        As ``env.run(until)``: the end is an urgent entry at ``until``, so events at ``until``
+        itself stay in the queue, except urgent ones scheduled before the run started."""
         env = self.env
+        at = until if isinstance(until, int) else float(until)
+        if at <= env.now:
+            raise ValueError(f"until ({at}) must be greater than the current time {env.now}")
+        self._push(env.now + (at - env.now), _FIRST, _Stop())
+        q, eid, pop, push, new = self.queue, self.eid, heappop, heappush, object.__new__
+        Source, Timer = SourceState, PatienceTimer
+        trace, records, warmup = self.trace, self.records, self.warmup
+        waits = any(p.waits_taken is not None for p in self.net.places.values())
+        ids = self.ids if trace is not None or records is not None else None
+        spare, max_jobs = self.spare, self.max_jobs
         now = env.now
-        if self.alive >= self.max_jobs:
-            raise JobLimitReached(now)
-        job = _Job(self.next_id, src, now)
-        self.next_id += 1
-        self.alive += 1
-        src.arrived += 1
-        if self.trace is not None:
-            self.trace.append((now, "arrive", src.name, job.id))
-        self._enter(src.place, job, now)
-        t = src.next_time(now)
-        if t < INF:
-            _Timer(env, t - now, self._on_arrival, src)
-        if self.pending and env.peek() > now:
-            self._settle(now)
-
-    def _on_hold(self, ev) -> None:
-        job = ev._value
-        fifo = job.fifo
-        place = fifo.place
-        place.n_hold -= 1
-        now = self.env.now
-        self._available(place, fifo, job, now)
-        if self.env.peek() > now:
-            self._settle(now)
-
-    def _on_patience(self, ev) -> None:
-        place, gen = ev._value
-        now = self.env.now
-        if gen == place.gen:
-            limit = max(place.armed_at, now)
-            place.armed_at = INF
-            if self.pending:  # jobs that can be taken at this instant are taken, not lost
-                self._settle(now)
-            heap = place.heap
-            while heap and heap[0][0] <= limit:
-                _, stamp, job = _heappop(heap)
-                if job.stamp == stamp:
-                    self._abandon(place, job, now)
+        while True:
+            now, _, _, ev = pop(q)
+            cls = ev.__class__
+            if cls is Job:  # the end of a hold
+                fifo = ev.fifo
+                place = fifo.place
+                place.n_hold -= 1
+                t = fifo.direct
+                if t is not None and not self.pending and q[0][0] > now:
+                    # _take_at_once inline, for a transition that takes no agents (its FIFO,
+                    # the place's only one, is empty: nothing waits, the area does not grow)
+                    fifo.at_once += 1  # counts for the place and the firings of t
+                    if waits and place.waits_taken is not None and now >= warmup:
+                        place.waits_taken.append(0.0)
+                    if trace is not None:
+                        trace.append((now, "fire", t.name, ev.id))
+                    bits = 0
+                    served = None  # the FIFO of the one transition the agents can serve
+                    pool = t.give1
+                    if pool is not None and not pool.owed:  # PoolState.give inline
+                        pool.area_avail += pool.avail * (now - pool.last)
+                        pool.last = now
+                        pool.avail += t.given1
+                        f = pool.taker
+                        if f is None:
+                            for f, bit in pool.takers:
+                                if f.live:
+                                    bits |= bit
+                        elif f.live:
+                            bits = pool.mask
+                            served = f
+                    else:
+                        for pool, k in t.gives:
+                            bits |= pool.give(k, now)
+                    out = t.out_place
+                    if out is not None:
+                        bits |= self._enter(out, ev, now)
+                    elif records is None:  # _end inline
+                        self.alive -= 1
+                        src = ev.source
+                        src.completed += 1
+                        self.completed += 1
+                        w = ev.waited
+                        if w:
+                            src.wait_sum += w
+                        spare.append(ev)
+                    else:
+                        self._end(ev, now, True, t.name)
+                    if bits:
+                        t = served.quick if served is not None and out is None else None
+                        if t is None:
+                            self.pending = bits
+                            self._settle(now)
+                        elif pool.avail >= t.weight1:
+                            # the one transition the agent can serve (a queue waits) fires, as
+                            # _settle would; tried again after only if still enabled
+                            bits = self._fire(t, now)
+                            if served.live and pool.avail >= t.weight1:
+                                bits |= t.bit
+                            if bits:
+                                self.pending = bits
+                                self._settle(now)
+                elif not self.pending and q[0][0] > now:
+                    self._offer(place, fifo, ev, now)
                 else:
-                    place.heap_dead -= 1
-            while heap and heap[0][2].stamp != heap[0][1]:
-                _heappop(heap)
-                place.heap_dead -= 1
-            if heap and heap[0][0] < place.armed_at:
-                self._arm(place, heap[0][0], now)
-        if self.pending and self.env.peek() > now:
-            self._settle(now)
+                    self.pending |= self._available(place, fifo, ev, now)
+                    if q[0][0] > now:
+                        self._settle(now)
+            elif cls is Source:  # an arrival
+                if self.alive >= max_jobs:
+                    self.unstable = True
+                    break
+                job = spare.pop() if spare else new(Job)
+                if ids is not None:  # (ids and arrival times are read by traces and records only)
+                    job.id = next(ids)
+                    job.arrival = now
+                job.source = ev
+                job.waited = 0.0
+                self.alive += 1
+                ev.arrived += 1
+                if trace is not None:
+                    trace.append((now, "arrive", ev.name, job.id))
+                place = ev.place
+                fifo = place.plain
+                if fifo is None:  # a place with a hold or a route
+                    bits = self._enter(place, job, now)
+                    spacing = ev.spacing
+                    t = now + next(spacing) if spacing is not None else ev.next_time(now)
+                    if t < INF:
+                        push(q, (now + (t - now), _NORMAL, next(eid), ev))
+                    if bits or self.pending:
+                        self.pending |= bits
+                        if q[0][0] > now:
+                            self._settle(now)
+                    continue
+                # A queue. Scheduling the next arrival before a patience timer of the job (the
+                # general path does it after) changes no order: the timer is a late event, and
+                # entries of different priorities never compare by eid.
+                spacing = ev.spacing
+                t = now + next(spacing) if spacing is not None else ev.next_time(now)
+                if t < INF:
+                    push(q, (now + (t - now), _NORMAL, next(eid), ev))
+                if self.pending or q[0][0] <= now:
+                    job.fifo = fifo
+                    self.pending |= self._available(place, fifo, job, now)
+                    if q[0][0] > now:
+                        self._settle(now)
+                    continue
+                t = fifo.quick
+                if t is None:
+                    job.fifo = fifo
+                    self._offer(place, fifo, job, now)
+                    continue
+                if t.take1.avail < t.weight1:  # _available inline: the job waits
+                    job.fifo = fifo
+                    n = place.n_avail
+                    if n:
+                        place.area += n * (now - place.last)
+                    place.last = now
+                    place.n_avail = n + 1
+                    place.became_q += 1
+                    job.avail = now
+                    fifo.dq.append(job)
+                    fifo.live += 1
+                    continue
+                # _take_at_once inline, for a transition that takes agents from one pool (idle
+                # agents and nothing pending: the FIFO, the place's only one, is empty)
+                fifo.at_once += 1
+                if waits and place.waits_taken is not None and now >= warmup:
+                    place.waits_taken.append(0.0)
+                pool = t.take1
+                pool.area_avail += pool.avail * (now - pool.last)
+                pool.last = now
+                pool.avail -= t.weight1
+                if trace is not None:
+                    trace.append((now, "fire", t.name, job.id))
+                bits = 0
+                if t.gives:
+                    for pool, k in t.gives:
+                        bits |= pool.give(k, now)
+                out = t.out_place
+                if out is None:
+                    self._end(job, now, True, t.name)
+                elif out.held is not None:  # _enter inline
+                    job.fifo = out.held
+                    out.n_hold += 1
+                    push(q, (now + next(out.hold), _NORMAL, next(eid), job))
+                else:
+                    bits |= self._enter(out, job, now)
+                if bits:
+                    self.pending = bits
+                    self._settle(now)
+            elif cls is _Stop:
+                break
+            else:  # a patience deadline, a snapshot hook, a staffing change
+                env._now = now
+                if cls is Timer:
+                    self._on_patience(ev, now)
+                else:
+                    ev.act(self, now)
+                if self.pending and q[0][0] > now:
+                    self._settle(now)
+        env._now = now
+        return now
 
-    def _on_schedule(self, ev) -> None:
-        pool, staff = ev._value
-        now = self.env.now
-        self._restaff(pool, staff, now)
-        if self.pending and self.env.peek() > now:
-            self._settle(now)
+    # --- marking changes (each returns the bits of the transitions it may have enabled) ---------
 
-    def _on_hook(self, ev) -> None:
-        ev._value(self)
-        now = self.env.now
-        if self.pending and self.env.peek() > now:
-            self._settle(now)
-
-    # --- marking changes -----------------------------------------------------------------------------
-
-    def _enter(self, place: PlaceState, job: _Job, now: float) -> None:
+    def _enter(self, place: PlaceState, job: Job, now: float) -> int:
         if place.route_cum is None:
             fifo = place.fifo
         else:
@@ -213,97 +339,131 @@ class Engine:
         job.fifo = fifo
         if place.hold is not None:
             place.n_hold += 1
-            _Timer(self.env, next(place.hold), self._on_hold, job)
-        else:
-            self._available(place, fifo, job, now)
+            heappush(self.queue, (now + next(place.hold), _NORMAL, next(self.eid), job))
+            return 0
+        return self._available(place, fifo, job, now)
 
-    def _available(self, place: PlaceState, fifo, job: _Job, now: float) -> None:
-        place.area += place.n_avail * (now - place.last)
+    def _available(self, place: PlaceState, fifo, job: Job, now: float) -> int:
+        n = place.n_avail
+        if n:  # (adding 0 × (now - last) would leave the sum as it is)
+            place.area += n * (now - place.last)
         place.last = now
-        place.n_avail += 1
-        place.became += 1
-        self.stamp += 1
-        stamp = job.stamp = self.stamp
+        place.n_avail = n + 1
+        place.became_q += 1
         job.avail = now
         if place.patience is not None:
+            self.stamp += 1
+            stamp = job.stamp = self.stamp
             deadline = now + next(place.patience)
             entry = (deadline, stamp, job)
-            _heappush(place.heap, entry)
+            heappush(place.heap, entry)
             if deadline < place.armed_at:
                 self._arm(place, deadline, now)
+            fifo.dq.append(entry)
         else:
-            entry = (now, stamp, job)
-        fifo.dq.append(entry)
+            fifo.dq.append(job)
         fifo.live += 1
-        self.pending |= fifo.mask
+        return fifo.mask
+
+    def _offer(self, place: PlaceState, fifo, job: Job, now: float) -> None:
+        """``job`` becomes available while nothing is pending and no other event shares this
+        instant: :meth:`_available` then :meth:`_settle`, trying only what can have changed."""
+        t = fifo.single
+        if t is None:
+            self.pending = self._available(place, fifo, job, now)
+            self._settle(now)
+            return
+        # Nothing was enabled before, so t is enabled now only if its agents are idle, and then
+        # the FIFO was empty: the job is its oldest token.
+        for pool, w in t.takes:
+            if pool.avail < w:
+                self._available(place, fifo, job, now)  # it waits
+                return
+        if place.patience is None:
+            bits = self._take_at_once(place, fifo, t, job, now)
+        else:  # the patience draw and the deadline's bookkeeping happen all the same
+            self._available(place, fifo, job, now)
+            bits = self._fire(t, now)
+        if bits:
+            self.pending = bits
+            self._settle(now)
+
+    def _take_at_once(self, place: PlaceState, fifo, t, job: Job, now: float) -> int:
+        """``job`` becomes available in ``place`` (without patience) and ``t`` takes it at this
+        instant: :meth:`_available` then :meth:`_fire`, a wait of 0, without the FIFO."""
+        n = place.n_avail
+        if n:
+            place.area += n * (now - place.last)
+            place.last = now
+        fifo.at_once += 1
+        if place.waits_taken is not None and now >= self.warmup:
+            place.waits_taken.append(0.0)
+        for pool, k in t.takes:
+            pool.area_avail += pool.avail * (now - pool.last)
+            pool.last = now
+            pool.avail -= k
+        if self.trace is not None:
+            self.trace.append((now, "fire", t.name, job.id))
+        bits = 0
+        for pool, k in t.gives:
+            bits |= pool.give(k, now)
+        if t.out_place is not None:
+            bits |= self._enter(t.out_place, job, now)
+        else:
+            self._end(job, now, True, t.name)
+        return bits
 
     def _arm(self, place: PlaceState, deadline: float, now: float) -> None:
+        if place.armed_at < INF:  # the timer armed so far is superseded
+            place.stale_timers += 1
         place.gen += 1
         place.armed_at = deadline
-        _Timer(self.env, deadline - now, self._on_patience, (place, place.gen), _LATE)
+        heappush(self.queue, (now + (deadline - now), _LATE, next(self.eid),
+                              PatienceTimer(place, place.gen)))
+        if place.stale_timers > 2 * place.n_avail + STALE_TIMER_SLACK:
+            self._drop_stale_timers()
 
-    def _abandon(self, place: PlaceState, job: _Job, now: float) -> None:
+    def _drop_stale_timers(self) -> None:
+        """Remove every superseded patience timer from the event queue: they would act on nothing
+        (their generation is old), and the other entries keep their keys, hence their order.
+        Called when a place's count passes its bound, so the cost, linear in the queue, is paid
+        once per STALE_TIMER_SLACK superseded timers or more."""
+        q = self.queue
+        self.dropped_timers += len(q)
+        q[:] = [e for e in q if e[3].__class__ is not PatienceTimer or e[3].gen == e[3].place.gen]
+        self.dropped_timers -= len(q)
+        heapify(q)
+        for place in self.timed_places:
+            place.stale_timers = 0
+
+    def _abandon(self, place: PlaceState, job: Job, now: float) -> int:
         fifo = job.fifo
         job.stamp = -1
         fifo.live -= 1
         fifo.dead += 1
         if fifo.dead > 2 * fifo.live + 32:
             fifo.compact()
-        place.area += place.n_avail * (now - place.last)
+        n = place.n_avail
+        place.area += n * (now - place.last)
         place.last = now
-        place.n_avail -= 1
+        place.n_avail = n - 1
         w = now - job.avail
-        place.left += 1
+        place.left_q += 1
         place.wait_sum += w
         place.abandoned += 1
         job.waited += w
+        if place.stale_timers > 2 * place.n_avail + STALE_TIMER_SLACK:
+            self._drop_stale_timers()
         if place.waits_abandoned is not None and now >= self.warmup:
             place.waits_abandoned.append(w)
         if self.trace is not None:
             self.trace.append((now, "abandon", place.name, job.id))
         if place.abandon_to is not None:
-            self._enter(place.abandon_to, job, now)
-        else:
-            self._end(job, now, False, place.name)
+            return self._enter(place.abandon_to, job, now)
+        self._end(job, now, False, place.name)
+        return 0
 
-    def _give(self, pool: PoolState, w: int, now: float) -> None:
-        if pool.owed:  # agents owed to a cut leave as they return
-            a = min(pool.owed, w)
-            pool.owed -= a
-            pool.area_present += pool.present * (now - pool.plast)
-            pool.plast = now
-            pool.present -= a
-            w -= a
-            if not w:
-                return
-        pool.area_avail += pool.avail * (now - pool.last)
-        pool.last = now
-        pool.avail += w
-        self.pending |= pool.mask
-
-    def _restaff(self, pool: PoolState, staff: int, now: float) -> None:
-        diff = staff - pool.target
-        pool.target = staff
-        pool.area_present += pool.present * (now - pool.plast)
-        pool.plast = now
-        pool.area_avail += pool.avail * (now - pool.last)
-        pool.last = now
-        if diff > 0:
-            keep = min(pool.owed, diff)  # busy agents due to leave stay on instead
-            pool.owed -= keep
-            diff -= keep
-            pool.present += diff
-            pool.avail += diff
-            if diff:
-                self.pending |= pool.mask
-        elif diff < 0:
-            cut = -diff
-            idle = min(pool.avail, cut)
-            pool.avail -= idle
-            pool.present -= idle
-            pool.owed += cut - idle
-
-    def _end(self, job: _Job, now: float, completed: bool, where: str) -> None:
+    def _end(self, job: Job, now: float, completed: bool, where: str) -> None:
         self.alive -= 1
         src = job.source
         if completed:
@@ -316,68 +476,106 @@ class Engine:
         if self.records is not None:
             outcome = ("completed:" if completed else "abandoned:") + where
             self.records.append((job.id, src.name, job.arrival, now, outcome))
+        # Stale entries of a patience heap may still point at the object: their stamps can never
+        # match the stamps it gets in a later life.
+        self.spare.append(job)
 
-    # --- firing ----------------------------------------------------------------------------------------
+    # --- events other than arrivals and ends of holds --------------------------------------------
+
+    def _on_patience(self, timer: PatienceTimer, now: float) -> None:
+        place = timer.place
+        if timer.gen == place.gen:
+            limit = max(place.armed_at, now)
+            place.armed_at = INF
+            if self.pending:  # jobs that can be taken at this instant are taken, not lost
+                self._settle(now)
+            heap = place.heap
+            bits = 0
+            while heap and heap[0][0] <= limit:
+                _, stamp, job = heappop(heap)
+                if job.stamp == stamp:
+                    bits |= self._abandon(place, job, now)
+                else:
+                    place.heap_dead -= 1
+            while heap and heap[0][2].stamp != heap[0][1]:
+                heappop(heap)
+                place.heap_dead -= 1
+            if heap and heap[0][0] < place.armed_at:
+                self._arm(place, heap[0][0], now)
+            self.pending |= bits
+        else:
+            place.stale_timers -= 1
+
+    # --- firing ----------------------------------------------------------------------------------
 
     def _settle(self, now: float) -> None:
         """Fire enabled transitions, one firing at a time, lowest rank first, until none is."""
         trans = self.trans
-        while self.pending:
-            p = self.pending
-            low = p & -p
+        pending = self.pending
+        while pending:
+            low = pending & -pending
             t = trans[low.bit_length() - 1]
-            enabled = t.fifo.live > 0
-            if enabled:
+            if t.fifo.live:
                 for pool, w in t.takes:
                     if pool.avail < w:
-                        enabled = False
                         break
-            if enabled:
-                self._fire(t, now)
-            else:
-                self.pending &= ~low
+                else:
+                    pending |= self._fire(t, now)
+                    continue
+            pending ^= low
+        self.pending = 0
 
-    def _fire(self, t, now: float) -> None:
+    def _fire(self, t, now: float) -> int:
         fifo = t.fifo
-        dq = fifo.dq
-        entry = dq.popleft()
-        while entry[2].stamp != entry[1]:
-            fifo.dead -= 1
-            entry = dq.popleft()
-        job = entry[2]
-        fifo.live -= 1
         place = fifo.place
-        place.area += place.n_avail * (now - place.last)
-        place.last = now
-        place.n_avail -= 1
-        w = now - job.avail
-        place.left += 1
-        place.wait_sum += w
-        job.waited += w
-        if w <= place.within:
-            place.taken_within += 1
-        if place.heap is not None:
+        if place.heap is None:
+            job = fifo.dq.popleft()
+        else:
+            dq = fifo.dq
+            entry = dq.popleft()
+            while entry[2].stamp != entry[1]:
+                fifo.dead -= 1
+                entry = dq.popleft()
+            job = entry[2]
+            job.stamp = -1
             place.heap_dead += 1
             if place.heap_dead > 2 * (len(place.heap) - place.heap_dead) + 32:
                 place.compact_heap()
+            if place.stale_timers > 2 * (place.n_avail - 1) + STALE_TIMER_SLACK:
+                self._drop_stale_timers()
+        fifo.live -= 1
+        n = place.n_avail
+        place.area += n * (now - place.last)
+        place.last = now
+        place.n_avail = n - 1
+        w = now - job.avail
+        place.left_q += 1
+        if w:
+            place.wait_sum += w
+            job.waited += w
+        else:
+            place.zero_q += 1
+        if w <= place.within:
+            place.within_q += 1
         if place.waits_taken is not None and now >= self.warmup:
             place.waits_taken.append(w)
-        job.stamp = -1
         for pool, k in t.takes:
             pool.area_avail += pool.avail * (now - pool.last)
             pool.last = now
             pool.avail -= k
-        t.firings += 1
+        t.fired += 1
         if self.trace is not None:
             self.trace.append((now, "fire", t.name, job.id))
+        bits = 0
         for pool, k in t.gives:
-            self._give(pool, k, now)
+            bits |= pool.give(k, now)
         if t.out_place is not None:
-            self._enter(t.out_place, job, now)
+            bits |= self._enter(t.out_place, job, now)
         else:
             self._end(job, now, True, t.name)
+        return bits
 
-    # --- bookkeeping -----------------------------------------------------------------------------------
+    # --- bookkeeping -----------------------------------------------------------------------------
 
     def inside(self) -> int:
         """Jobs in the net now, counted place by place (held or available)."""

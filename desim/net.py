@@ -10,6 +10,9 @@ Transitions get a global rank that respects every priority list (a linear extens
 orders): when several transitions could fire at the same instant, the engine fires the lowest
 rank first, one firing at a time, so a higher-priority transition never loses a token to a lower
 one at the same instant.
+
+:func:`build_net` also precomputes the facts the engine's shortcuts read (which FIFO feeds one
+transition only, which pool one transition only takes from, ...): see :func:`_shortcuts`.
 """
 
 from __future__ import annotations
@@ -25,20 +28,43 @@ from fluid.scenario import Scenario
 
 from .streams import block_draws, stream_rng, uniform_draws
 
-__all__ = ["Fifo", "PlaceState", "PoolState", "TransitionState", "SourceState", "Net", "build_net",
-           "transition_order"]
+__all__ = ["Job", "PatienceTimer", "Fifo", "PlaceState", "PoolState", "TransitionState",
+           "SourceState", "Net", "build_net", "transition_order"]
 
 INF = math.inf
+
+
+class Job:
+    """One job (the engine makes it without ``__init__`` and reuses it once the job has ended):
+    ``id``, ``source``, ``arrival`` (set only when a trace or job records are kept), ``waited``
+    (total time available-and-waiting over all places), ``fifo`` (the FIFO it is in or about to
+    enter), ``avail`` (when it became available there), ``stamp`` (its current stay as an
+    available token of a place with patience; -1 once it has left such a place)."""
+
+    __slots__ = ("id", "source", "arrival", "stamp", "avail", "fifo", "waited")
+
+
+class PatienceTimer:
+    """The event-queue item of the patience deadline armed at ``place``; it acts only while
+    ``gen`` is the place's current generation (an earlier deadline arriving later supersedes it)."""
+
+    __slots__ = ("place", "gen")
+
+    def __init__(self, place: "PlaceState", gen: int):
+        self.place = place
+        self.gen = gen
 
 
 class Fifo:
     """Available jobs of a place, oldest first (by the time they became available).
 
-    Entries are ``(deadline, stamp, job)`` tuples; an entry is stale when ``job.stamp != stamp``
-    (the job abandoned). Stale entries are skipped when met and purged when they outnumber the
-    live ones by more than two to one."""
+    In a place with patience the entries are ``(deadline, stamp, job)`` tuples, shared with the
+    place's deadline heap; an entry is stale when ``job.stamp != stamp`` (the job abandoned).
+    Stale entries are skipped when met and purged when they outnumber the live ones by more than
+    two to one. In a place without patience the entries are the jobs themselves (none is ever
+    stale)."""
 
-    __slots__ = ("dq", "live", "dead", "place", "mask")
+    __slots__ = ("dq", "live", "dead", "place", "mask", "single", "direct", "quick", "at_once")
 
     def __init__(self, place: "PlaceState", mask: int):
         self.dq: deque = deque()
@@ -46,10 +72,24 @@ class Fifo:
         self.dead = 0
         self.place = place
         self.mask = mask  # bits of the transitions that take from this FIFO
+        # Set by build_net (see _shortcuts): the only transition taking from this FIFO; the same
+        # when it takes no agents (`direct`) or agents from one pool (`quick`) and the place
+        # has neither patience nor route, so that a token that becomes available while nothing
+        # else is pending can be taken at once, without entering the FIFO.
+        self.single: TransitionState | None = None
+        self.direct: TransitionState | None = None
+        self.quick: TransitionState | None = None
+        self.at_once = 0  # tokens `single` took that way (counted for the place and for it)
 
     def compact(self) -> None:
         self.dq = deque(e for e in self.dq if e[2].stamp == e[1])
         self.dead = 0
+
+    def waiting(self) -> list:
+        """The jobs available and waiting, oldest first."""
+        if self.place.heap is None:
+            return list(self.dq)
+        return [e[2] for e in self.dq if e[2].stamp == e[1]]
 
 
 class PlaceState:
@@ -57,9 +97,9 @@ class PlaceState:
 
     __slots__ = (
         "name", "hold", "route_cum", "route_draw", "fifos", "fifo", "patience", "abandon_to",
-        "heap", "heap_dead", "armed_at", "gen",
-        "n_avail", "n_hold", "area", "last", "became", "left", "wait_sum", "abandoned",
-        "within", "taken_within", "waits_taken", "waits_abandoned",
+        "heap", "heap_dead", "armed_at", "gen", "stale_timers", "plain", "held",
+        "n_avail", "n_hold", "area", "last", "wait_sum", "abandoned", "within",
+        "became_q", "left_q", "within_q", "zero_q", "waits_taken", "waits_abandoned",
     )
 
     def __init__(self, name: str):
@@ -75,18 +115,50 @@ class PlaceState:
         self.heap_dead = 0
         self.armed_at = INF  # time of the one patience timer that counts
         self.gen = 0  # generation of that timer; older timers see a different number
+        self.stale_timers = 0  # superseded patience timers still in the event queue
+        self.plain: Fifo | None = None  # the FIFO, when the place has neither hold nor route
+        self.held: Fifo | None = None  # the FIFO, when the place has a hold but no route
         self.n_avail = 0
         self.n_hold = 0
         self.area = 0.0  # ∫ n_avail dt from 0 to `last`
         self.last = 0.0
-        self.became = 0
-        self.left = 0
         self.wait_sum = 0.0
         self.abandoned = 0
         self.within = -1.0  # service-level threshold; negative = no target
-        self.taken_within = 0
+        # Counts of tokens. Most tokens taken the instant they become available skip the FIFO
+        # (the engine's shortcuts) and are counted by their FIFO alone (Fifo.at_once); the
+        # others in the `_q` counters. Read the totals through the properties below.
+        self.became_q = 0
+        self.left_q = 0  # taken or abandoned
+        self.within_q = 0  # taken with a wait of at most `within`
+        self.zero_q = 0  # taken with a wait of 0
         self.waits_taken: list[float] | None = None
         self.waits_abandoned: list[float] | None = None
+
+    @property
+    def at_once(self) -> int:
+        """Tokens taken the instant they became available without entering a FIFO."""
+        return sum(f.at_once for f in self.fifos)
+
+    @property
+    def became(self) -> int:
+        """Tokens that became available."""
+        return self.became_q + self.at_once
+
+    @property
+    def left(self) -> int:
+        """Tokens that left after becoming available (taken or abandoned)."""
+        return self.left_q + self.at_once
+
+    @property
+    def taken_within(self) -> int:
+        """Tokens taken with a wait of at most ``within``."""
+        return self.within_q + (self.at_once if self.within >= 0.0 else 0)
+
+    @property
+    def taken_at_once(self) -> int:
+        """Tokens taken the instant they became available (a wait of 0)."""
+        return self.zero_q + self.at_once
 
     def compact_heap(self) -> None:
         self.heap = [e for e in self.heap if e[2].stamp == e[1]]
@@ -94,7 +166,13 @@ class PlaceState:
         self.heap_dead = 0
 
     def area_at(self, now: float) -> float:
+        """∫ n_avail dt from 0 to ``now`` (jobs available and waiting × time)."""
         return self.area + self.n_avail * (now - self.last)
+
+    def waiting_at(self, now: float) -> tuple[int, float]:
+        """(jobs available and waiting now, the sum of how long each has waited so far)."""
+        jobs = [j for f in self.fifos for j in f.waiting()]
+        return len(jobs), float(sum(now - j.avail for j in jobs))
 
 
 class PoolState:
@@ -102,7 +180,7 @@ class PoolState:
     busy agents that leave as they finish after a cut); ``avail`` of them are idle."""
 
     __slots__ = ("name", "avail", "target", "owed", "present", "area_avail", "last",
-                 "area_present", "plast", "mask", "schedule")
+                 "area_present", "plast", "mask", "takers", "taker", "schedule")
 
     def __init__(self, name: str, staff: int, schedule):
         self.name = name
@@ -115,7 +193,56 @@ class PoolState:
         self.area_present = 0.0
         self.plast = 0.0
         self.mask = 0
+        self.takers: tuple = ()  # (FIFO, bit) of each transition taking agents from this pool
+        self.taker: Fifo | None = None  # the FIFO of the only such transition, if one
         self.schedule = schedule
+
+    def give(self, w: int, now: float) -> int:
+        """``w`` agents come back at ``now`` (those owed to a cut leave instead); return the bits
+        of the transitions that may have become enabled (those with a job waiting)."""
+        if self.owed:
+            a = min(self.owed, w)
+            self.owed -= a
+            self.area_present += self.present * (now - self.plast)
+            self.plast = now
+            self.present -= a
+            w -= a
+            if not w:
+                return 0
+        self.area_avail += self.avail * (now - self.last)
+        self.last = now
+        self.avail += w
+        bits = 0
+        for fifo, bit in self.takers:  # a taker with no job waiting stays disabled
+            if fifo.live:
+                bits |= bit
+        return bits
+
+    def restaff(self, staff: int, now: float) -> int:
+        """The scheduled staff becomes ``staff`` at ``now``: an increase adds idle agents at
+        once, a cut removes idle agents at once and the rest as busy agents come back. Return
+        the bits of the transitions that may have become enabled."""
+        diff = staff - self.target
+        self.target = staff
+        self.area_present += self.present * (now - self.plast)
+        self.plast = now
+        self.area_avail += self.avail * (now - self.last)
+        self.last = now
+        if diff > 0:
+            keep = min(self.owed, diff)  # busy agents due to leave stay on instead
+            self.owed -= keep
+            diff -= keep
+            self.present += diff
+            self.avail += diff
+            if diff:
+                return self.mask
+        elif diff < 0:
+            cut = -diff
+            idle = min(self.avail, cut)
+            self.avail -= idle
+            self.present -= idle
+            self.owed += cut - idle
+        return 0
 
     def areas_at(self, now: float) -> tuple[float, float]:
         """(∫ busy dt, ∫ on-duty dt) from 0 to ``now``."""
@@ -125,7 +252,8 @@ class PoolState:
 
 
 class TransitionState:
-    __slots__ = ("name", "bit", "fifo", "takes", "out_place", "gives", "firings")
+    __slots__ = ("name", "bit", "fifo", "takes", "out_place", "gives", "fired", "take1",
+                 "weight1", "give1", "given1")
 
     def __init__(self, name: str, bit: int):
         self.name = name
@@ -134,19 +262,30 @@ class TransitionState:
         self.takes: tuple = ()  # ((PoolState, weight), ...)
         self.out_place: PlaceState | None = None
         self.gives: tuple = ()  # ((PoolState, weight), ...)
-        self.firings = 0
+        self.fired = 0  # firings, but those counted by the FIFO (Fifo.at_once)
+        self.take1: PoolState | None = None  # the pool and weight when it takes from one pool
+        self.weight1 = 0
+        self.give1: PoolState | None = None  # the pool and weight when it gives to one pool
+        self.given1 = 0
+
+    @property
+    def firings(self) -> int:
+        """Times it fired."""
+        fifo = self.fifo
+        return self.fired + (fifo.at_once if fifo.single is self else 0)
 
 
 class SourceState:
     """Arrivals of one source and the cumulative counts of its jobs."""
 
-    __slots__ = ("name", "place", "gaps", "rate", "step", "rates", "interval", "trace", "trace_i",
-                 "arrived", "completed", "abandoned", "wait_sum")
+    __slots__ = ("name", "place", "gaps", "spacing", "rate", "step", "rates", "interval", "trace",
+                 "trace_i", "arrived", "completed", "abandoned", "wait_sum")
 
     def __init__(self, name: str, place: PlaceState):
         self.name = name
         self.place = place
-        self.gaps: Iterator[float] | None = None  # standard exponential draws
+        self.gaps: Iterator[float] | None = None  # standard exponential draws (profiles)
+        self.spacing: Iterator[float] | None = None  # times between arrivals (constant rate)
         self.rate = 0.0
         self.step = 0.0
         self.rates: tuple[float, ...] = ()
@@ -162,8 +301,8 @@ class SourceState:
         """Time of the arrival after one at ``now`` (inf when there is none)."""
         if self.rates:
             return self._next_profile(now)
-        if self.gaps is not None:
-            return now + next(self.gaps) / self.rate
+        if self.spacing is not None:
+            return now + next(self.spacing)
         i = self.trace_i
         if i >= len(self.trace):
             return INF
@@ -310,10 +449,44 @@ def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: 
             ss.trace = tuple(s.trace)
         else:
             rng = stream_rng(seed, replication, "arrivals", s.name)
-            ss.gaps = block_draws(lambda g, n: g.standard_exponential(n), rng, block)
             if s.profile is not None:
+                ss.gaps = block_draws(lambda g, n: g.standard_exponential(n), rng, block)
                 ss.step, ss.rates = s.profile.step, tuple(s.profile.rates)
             else:
+                # gap / rate divided by numpy a block at a time: IEEE division is correctly
+                # rounded in numpy as in Python, so every arrival time is the same float
                 ss.rate = s.rate
+                ss.spacing = block_draws(
+                    lambda g, n, rate=s.rate: g.standard_exponential(n) / rate, rng, block)
         sources[s.name] = ss
-    return Net(scenario, places, pools, [trans[n] for n in order], sources)
+    net = Net(scenario, places, pools, [trans[n] for n in order], sources)
+    _shortcuts(net)
+    return net
+
+
+def _shortcuts(net: Net) -> None:
+    """Precompute what the engine's shortcuts read (see :class:`desim.engine.Engine`).
+
+    When nothing is pending (every transition is disabled) and a token becomes available in a
+    FIFO that feeds one transition, only that transition can have become enabled, and only if
+    the FIFO was empty: the engine then tries it alone instead of settling the whole net."""
+    for place in net.places.values():
+        plain = place.route_cum is None
+        place.plain = place.fifo if plain and place.hold is None else None
+        place.held = place.fifo if plain and place.hold is not None else None
+    for t in net.transitions:
+        if len(t.takes) == 1:
+            t.take1, t.weight1 = t.takes[0]
+        if len(t.gives) == 1:
+            t.give1, t.given1 = t.gives[0]
+    for place in net.places.values():
+        for fifo in place.fifos:
+            takers = [t for t in net.transitions if t.fifo is fifo]
+            t = fifo.single = takers[0] if len(takers) == 1 else None
+            if t is not None and place.patience is None and place.route_cum is None:
+                fifo.direct = t if not t.takes else None
+                fifo.quick = t if t.take1 is not None else None
+    for pool in net.pools.values():
+        pool.takers = tuple((t.fifo, t.bit) for t in net.transitions
+                            if any(r is pool for r, _ in t.takes))
+        pool.taker = pool.takers[0][0] if len(pool.takers) == 1 else None

@@ -21,7 +21,7 @@ from .warmup import mser5
 __all__ = ["SimulationResult", "WarmupSuggestion", "summarize"]
 
 #: Metrics reported (as estimates) per kind of node; per-replication values hold a few more.
-PLACE_METRICS = ("wait", "abandoned", "queue", "served_within")
+PLACE_METRICS = ("wait", "abandoned", "queue", "served_within", "delayed")
 SOURCE_METRICS = ("arrivals", "completed", "abandoned", "abandoned_share", "total_wait")
 
 
@@ -56,7 +56,8 @@ class SimulationResult:
     measured over [warmup, horizon], base seed ``seed``.
 
     ``transitions`` {t: {"rate"}}, ``places`` {p: {"wait", "abandoned", "queue",
-    "served_within" (places with a target only)}}, ``pools`` {r: {"busy"}}, ``sources``
+    "served_within" (places with a target only), "delayed" (share not taken the instant they
+    became available: P(W > 0))}}, ``pools`` {r: {"busy"}}, ``sources``
     {s: {"arrivals", "completed", "abandoned", "abandoned_share", "total_wait"}}: each value an
     :class:`Estimate`. ``intervals``: tidy per-interval table (columns interval, start, end,
     metric, name, mean, low, high, n) or None. ``unstable``: per-replication flags of runs stopped

@@ -7,7 +7,13 @@ job is kept unless asked for (design.md §4.2):
 * place ``wait``: mean time from becoming available to leaving, over tokens that left in the window;
 * place ``served_within`` (places with a service target): taken within ``within`` / became
   available; ``abandoned``: abandoned / became available; ``queue``: time-average number
-  available and waiting;
+  available and waiting; ``delayed``: not taken the instant they became available (they waited,
+  or abandoned, or still wait at the end) / became available, Erlang C's P(W > 0) at a queue;
+* place ``waiting_at_warmup``, ``waiting_at_end``: jobs available and waiting at the warm-up
+  instant and at the end; ``waited_at_warmup``, ``waited_at_end``: how long those jobs had waited
+  so far, summed. They close Little's law exactly, per run and place:
+  ``queue × (end − warmup) = wait × left + waited_at_end − waited_at_warmup`` (the area under
+  the number waiting is the waiting time inside the window of every job that waited there);
 * transition ``rate``: firings per time unit;
 * pool ``busy``: busy agent-time / on-duty agent-time (with a fixed staff: the time-average
   fraction of staff not available);
@@ -40,7 +46,8 @@ DEFAULT_MAX_JOBS = 1_000_000
 #: Points of the total-queue series per run (the MSER-5 input).
 DEFAULT_SAMPLES = 1000
 
-_PLACE_FIELDS = ("became", "left", "wait_sum", "abandoned", "taken_within", "area")
+_PLACE_FIELDS = ("became", "left", "wait_sum", "abandoned", "taken_within", "area",
+                 "taken_at_once")
 _SOURCE_FIELDS = ("arrived", "completed", "abandoned", "wait_sum")
 
 
@@ -117,7 +124,8 @@ def _snapshot(net: Net, now: float) -> np.ndarray:
     """Cumulative counters of every node at ``now``, in a fixed layout (see :func:`_split`)."""
     values: list[float] = []
     for p in net.places.values():
-        values += (p.became, p.left, p.wait_sum, p.abandoned, p.taken_within, p.area_at(now))
+        values += (p.became, p.left, p.wait_sum, p.abandoned, p.taken_within, p.area_at(now),
+                   p.taken_at_once)
     for r in net.pools.values():
         values += r.areas_at(now)
     values += (t.firings for t in net.transitions)
@@ -131,8 +139,8 @@ def _split(net: Net, snap: np.ndarray) -> tuple[dict, dict, dict, dict]:
     i = 0
     places, pools, trans, sources = {}, {}, {}, {}
     for name in net.places:
-        places[name] = dict(zip(_PLACE_FIELDS, snap[i:i + 6]))
-        i += 6
+        places[name] = dict(zip(_PLACE_FIELDS, snap[i:i + len(_PLACE_FIELDS)]))
+        i += len(_PLACE_FIELDS)
     for name in net.pools:
         pools[name] = {"busy_area": snap[i], "duty_area": snap[i + 1]}
         i += 2
@@ -143,6 +151,11 @@ def _split(net: Net, snap: np.ndarray) -> tuple[dict, dict, dict, dict]:
         sources[name] = dict(zip(_SOURCE_FIELDS, snap[i:i + 4]))
         i += 4
     return places, pools, trans, sources
+
+
+def _backlog(net: Net, now: float) -> dict[str, tuple[int, float]]:
+    """Per place: (jobs available and waiting at ``now``, how long they have waited so far)."""
+    return {name: p.waiting_at(now) for name, p in net.places.items()}
 
 
 def _ratio(a: float, b: float) -> float:
@@ -164,6 +177,7 @@ def _window_stats(scenario: Scenario, net: Net, delta: np.ndarray, length: float
         }
         if name in scenario.targets.service:
             m["served_within"] = _ratio(d["taken_within"], d["became"])
+        m["delayed"] = _ratio(d["became"] - d["taken_at_once"], d["became"])
         m.update(became=int(d["became"]), left=int(d["left"]), abandoned_count=int(d["abandoned"]))
         places[name] = m
     pools = {name: {"busy": _ratio(d["busy_area"], d["duty_area"])} for name, d in pools_d.items()}
@@ -230,10 +244,16 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
     engine.start()
 
     snaps: dict[str, np.ndarray] = {}
+    backlog: dict[str, dict] = {}
+
+    def open_window(now: float) -> None:
+        snaps["warmup"] = _snapshot(net, now)
+        backlog["warmup"] = _backlog(net, now)
+
     if warmup == 0:
-        snaps["warmup"] = _snapshot(net, 0.0)
+        open_window(0.0)
     else:
-        engine.at(warmup, lambda e: snaps.__setitem__("warmup", _snapshot(net, e.env.now)))
+        engine.at(warmup, lambda e: open_window(e.env.now))
 
     step = horizon / samples
     areas = [0.0]
@@ -273,6 +293,11 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
     else:  # stopped before the window opened: nothing to measure
         stats = _window_stats(scenario, net, np.zeros_like(final), 0.0)
     transitions, places, pools, sources = stats
+    at_end = _backlog(net, end)
+    for name, m in places.items():
+        n0, w0 = backlog["warmup"][name] if "warmup" in backlog else (math.nan, math.nan)
+        n1, w1 = at_end[name]
+        m.update(waiting_at_warmup=n0, waiting_at_end=n1, waited_at_warmup=w0, waited_at_end=w1)
 
     intervals = None
     if interval is not None:

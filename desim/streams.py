@@ -11,6 +11,7 @@ patience draws (common random numbers).
 from __future__ import annotations
 
 import zlib
+from itertools import chain
 from typing import Callable, Iterator
 
 import numpy as np
@@ -43,10 +44,9 @@ def block_draws(sample: Callable[[np.random.Generator, int], np.ndarray],
                 rng: np.random.Generator, block: int = BLOCK) -> Iterator[float]:
     """An endless iterator of Python floats, refilled ``block`` at a time by ``sample(rng, block)``.
 
-    ``next()`` on it is the cheapest way to take one draw in the engine's hot path (a list
-    iterator over Python floats, no numpy scalar per draw)."""
-    while True:
-        yield from sample(rng, block).tolist()
+    ``next()`` on it is the cheapest way to take one draw in the engine's hot path: a chain of
+    lists of Python floats, no numpy scalar and no generator frame per draw."""
+    return chain.from_iterable(iter(lambda: sample(rng, block).tolist(), None))
 
 
 def uniform_draws(rng: np.random.Generator, block: int = BLOCK) -> Iterator[float]:

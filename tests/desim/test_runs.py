@@ -300,8 +300,8 @@ def test_result_structure_and_json_contract(net):
     assert doc["replications"] == 3
     assert set(doc["transitions"]) == {"answer", "close"}
     assert set(doc["transitions"]["answer"]) == {"rate"}
-    assert set(doc["places"]["queue"]) == {"wait", "abandoned", "queue", "served_within"}
-    assert set(doc["places"]["talk"]) == {"wait", "abandoned", "queue"}
+    assert set(doc["places"]["queue"]) == {"wait", "abandoned", "queue", "served_within", "delayed"}
+    assert set(doc["places"]["talk"]) == {"wait", "abandoned", "queue", "delayed"}
     assert set(doc["pools"]["agents"]) == {"busy"}
     assert set(doc["places"]["queue"]["wait"]) == {"mean", "low", "high", "n"}
     assert doc["places"]["queue"]["wait"]["n"] == 3
