@@ -254,6 +254,7 @@ _paths = st.sampled_from([
 ])
 
 
+@pytest.mark.filterwarnings("ignore::fluid.loading.ScenarioWarning")
 @settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(edits=st.lists(st.tuples(_paths, _values), min_size=1, max_size=3))
 def test_fuzzed_documents_raise_only_scenario_error(edits):
@@ -273,6 +274,7 @@ def test_fuzzed_documents_raise_only_scenario_error(edits):
         pass
 
 
+@pytest.mark.filterwarnings("ignore::fluid.loading.ScenarioWarning")
 @settings(max_examples=200, deadline=None)
 @given(text=st.text(max_size=200))
 def test_fuzzed_text_raises_only_scenario_error(text):
