@@ -126,10 +126,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
     p.set_defaults(handler=commands.scale)
 
-    p = sub.add_parser("phases", help="exact fluid phase diagram over the staff of two pools")
+    p = sub.add_parser("phases", help="exact fluid phase diagram over the staff of one or two "
+                       "pools")
     _common(p)
-    p.add_argument("--axes", nargs=2, required=True, metavar=("POOL_A", "POOL_B"),
-                   help="the two pools whose staff spans the diagram")
+    p.add_argument("--axes", nargs="+", required=True, metavar="POOL",
+                   help="one pool (the rate against its staff) or two pools (the diagram over "
+                   "their staff)")
     p.add_argument("--of", metavar="TRANSITION",
                    help="the rate drawn (default: the total rate of transitions that end jobs)")
     p.add_argument("--range", action="append", metavar="POOL=LO:HI",
@@ -147,6 +149,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="cost per agent of a pool (default 1; repeatable)")
     p.add_argument("--fluid-only", action="store_true", dest="fluid_only",
                    help="stop at the fluid plan (no simulation)")
+    p.add_argument("--png", metavar="FILE", help="write the figure of the plans as a PNG file")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
     _simulation_options(p)
     p.set_defaults(handler=plans.staff)
     return parser

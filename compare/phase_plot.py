@@ -37,10 +37,11 @@ from fluid.phases import INFLOW, Piece, PhaseDiagram
 from fluid.scenario import Scenario
 from fluid.staffing import with_staff
 
-from .figures import _STYLE, OPTIMISTIC, PESSIMISTIC, REFERENCE, SIMULATED, TARGET
+from .figures import _STYLE, OPTIMISTIC, PESSIMISTIC, REFERENCE, SERIES, SIMULATED, TARGET
 from .staffing_search import ABANDONMENT, meets_targets, overall_abandonment, target_estimates
 
-__all__ = ["phase_figure", "phase_overlay", "phase_regions", "phase_boundaries"]
+__all__ = ["phase_figure", "phase_overlay", "phase_regions", "phase_boundaries",
+           "phase_intervals"]
 
 # region fills: grey for the inflow, then the Okabe–Ito colours (yellow last: pale on white)
 _REGION_COLOURS = ("#56B4E9", "#E69F00", "#009E73", "#CC79A7", "#0072B2", "#D55E00", "#F0E442")
@@ -173,7 +174,12 @@ def phase_figure(diagram: PhaseDiagram, *, overlay: pd.DataFrame | None = None,
     interval of the rate) and blue circles elsewhere. When the overlay has
     service levels a second panel shows, per point, whether every target (service levels and
     abandonment) is met with confidence (green square) or not (vermillion cross), with the worst
-    simulated service level written beside it."""
+    simulated service level written beside it.
+
+    With one axis the figure is the rate against that pool's staff instead: see
+    :func:`_profile_figure`."""
+    if len(diagram.axes) == 1:
+        return _profile_figure(diagram, overlay, title)
     a_name, b_name = diagram.axes
     with_sl = overlay is not None and any(c.endswith("_sl_low") for c in overlay.columns)
     ncols = 2 if with_sl else 1
@@ -317,24 +323,186 @@ def _draw_service_levels(ax, overlay: pd.DataFrame) -> list:
                    label="some target missed (worst service level written)")]
 
 
+# --- one axis: the rate against one pool's staff ------------------------------------------------
+
+
+def phase_intervals(diagram: PhaseDiagram) -> list[tuple[int, float, float]]:
+    """(piece index, low, high) of every piece's cell within the drawn range of a one-axis
+    diagram, left to right (cells of no length there left out). LP method only."""
+    if diagram.method != "lp" or len(diagram.axes) != 1:
+        raise ValueError("exact intervals need a one-axis diagram from the LP")
+    lo, hi = diagram.box()
+    cuts = {lo, hi}
+    for p, q in itertools.combinations(diagram.pieces, 2):
+        (cp,), (cq,) = p.coef.values(), q.coef.values()
+        if cp != cq and lo < (x := (q.const - p.const) / (cp - cq)) < hi:
+            cuts.add(x)
+    cuts = sorted(cuts)
+    out: list[tuple[int, float, float]] = []
+    for x0, x1 in zip(cuts, cuts[1:]):
+        i = int(diagram.piece_at(0.5 * (x0 + x1)))
+        if out and out[-1][0] == i:
+            out[-1] = (i, out[-1][1], x1)
+        elif x1 - x0 > 1e-12 * (hi - lo):
+            out.append((i, x0, x1))
+    return out
+
+
+def _profile_figure(diagram: PhaseDiagram, overlay: pd.DataFrame | None,
+                    title: str | None) -> Figure:
+    """One axis: the fluid rate (black line; with the LP its exact pieces, kinks dotted; from the
+    counters, the integer grid points) against the pool's staff, the staff range shaded by the
+    limiting pools and named, the inflow-limited rate dotted, the scenario's staff a dashed line
+    and a black star. ``overlay``: the simulated rate at integer staff (mean and 95 % interval;
+    blue circles, vermillion triangles where the fluid is optimistic, i.e. above the interval)
+    and, when there are service-level targets, a second panel with the simulated service level
+    of each target against its goal (dashed)."""
+    pool = diagram.axes[0]
+    with_sl = overlay is not None and any(c.endswith("_sl_low") for c in overlay.columns)
+    ncols = 2 if with_sl else 1
+    with mpl.rc_context(_STYLE):
+        fig = Figure(figsize=(6.6 * ncols, 4.8), layout="constrained")
+        axes = fig.subplots(1, ncols, squeeze=False)[0]
+        handles = _draw_profile(axes[0], diagram)
+        top = max([diagram.inflow_rate] + [g.rate for g in diagram.grid])
+        if overlay is not None and len(overlay):
+            handles += _draw_profile_gaps(axes[0], overlay)
+            top = max(top, float(np.nanmax(overlay["sim_high"].to_numpy(float), initial=0.0)))
+            if with_sl:
+                _shade(axes[1], diagram, named=False)
+                handles += _draw_profile_service_levels(axes[1], overlay)
+                axes[1].axvline(diagram.staff[pool], color="black", ls="--", lw=0.8, zorder=2)
+        axes[0].set_ylim(0, 1.2 * top if top > 0 else 1.0)
+        for ax in axes:
+            ax.set_xlabel(f"{pool} (agents)")
+        axes[0].set_ylabel(f"{diagram.of_label or 'rate'} per {diagram.time_unit}")
+        axes[0].set_title(f"fluid rate against the staff of {pool}"
+                          + (" with the simulated rate" if overlay is not None else ""), pad=10)
+        fig.legend(handles=handles, loc="outside lower center", ncols=2, frameon=False)
+        method = ("exact fluid rate (LP pieces)" if diagram.method == "lp" else
+                  "fluid rate from the counter equations at integer staff points")
+        fig.suptitle(textwrap.fill(title or f"{diagram.scenario_name}: {method}",
+                                   width=70 * ncols))
+    return fig
+
+
+def _spans(diagram: PhaseDiagram) -> list[tuple[str, float, float]]:
+    """(label, low, high) of the shaded stretches of a one-axis diagram, left to right."""
+    if diagram.method == "lp":
+        return [(diagram.pieces[i].label, x0, x1) for i, x0, x1 in phase_intervals(diagram)]
+    pts = sorted(diagram.grid, key=lambda g: g.a)
+    xs = np.array([g.a for g in pts], dtype=float)
+    half = float(np.min(np.diff(xs))) / 2 if len(xs) > 1 else 0.5
+    edges = np.concatenate([[xs[0] - half], (xs[1:] + xs[:-1]) / 2, [xs[-1] + half]])
+    out: list[tuple[str, float, float]] = []
+    for g, x0, x1 in zip(pts, edges[:-1], edges[1:]):
+        if out and out[-1][0] == g.label:
+            out[-1] = (g.label, out[-1][1], x1)
+        else:
+            out.append((g.label, x0, x1))
+    return out
+
+
+def _shade(ax, diagram: PhaseDiagram, named: bool = True) -> dict[str, str]:
+    spans = _spans(diagram)
+    colours = _colours([lab for lab, _, _ in spans])
+    width = spans[-1][2] - spans[0][1]
+    for k, (label, x0, x1) in enumerate(spans):
+        ax.axvspan(x0, x1, facecolor=colours[label], alpha=0.3, lw=0, zorder=0)
+        if k:
+            ax.axvline(x0, color=REFERENCE, lw=0.8, zorder=1)
+        if named and x1 - x0 > 0.08 * width:
+            ax.text(0.5 * (x0 + x1), 0.97, label.replace("+", "+\n"), ha="center", va="top",
+                    fontsize=8, zorder=4, transform=ax.get_xaxis_transform(),
+                    bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none", alpha=0.7))
+    ax.set_xlim(spans[0][1], spans[-1][2])
+    return colours
+
+
+def _draw_profile(ax, diagram: PhaseDiagram) -> list:
+    colours = _shade(ax, diagram)
+    if diagram.method == "lp":
+        spans = phase_intervals(diagram)
+        xs = np.array([spans[0][1]] + [x1 for _, _, x1 in spans])
+        ax.plot(xs, diagram.rate_at(xs), color="black", lw=1.6, zorder=3)
+        ax.plot(xs[1:-1], diagram.rate_at(xs[1:-1]), ls="", marker="o", ms=4, color="black",
+                zorder=3)
+        line = "fluid rate (exact; dots: where the limiting pools change)"
+        lo, hi = diagram.box()
+    else:
+        xs = np.array(sorted(g.a for g in diagram.grid), dtype=float)
+        ax.plot(xs, [diagram.rate_at(x) for x in xs], color="black", lw=1.2, marker="o", ms=3.5,
+                zorder=3)
+        line = "fluid rate (counter equations at integer staff)"
+        lo, hi = xs[0], xs[-1]
+    ax.axhline(diagram.inflow_rate, color=REFERENCE, ls=":", lw=1, zorder=1)
+    handles = [Patch(facecolor=c, alpha=0.3, label=f"limited by {lab}" if lab != INFLOW
+                     else "limited by the inflow") for lab, c in colours.items()]
+    handles += [Line2D([], [], color="black", lw=1.4, label=line),
+                Line2D([], [], color=REFERENCE, ls=":", lw=1,
+                       label=f"inflow-limited rate (per {diagram.time_unit})")]
+    s = diagram.staff[diagram.axes[0]]
+    if lo <= s <= hi:
+        ax.axvline(s, color="black", ls="--", lw=0.8, zorder=2)
+        ax.scatter([s], [float(diagram.rate_at(s))], marker="*", s=160, color="black", zorder=5)
+        handles.append(Line2D([], [], marker="*", color="black", ls="--", lw=0.8, ms=11,
+                              label=f"scenario's staff ({s:.4g})"))
+    return handles
+
+
+def _errorbars(ax, x, mean, low, high, **style) -> None:
+    err = np.vstack([np.nan_to_num(mean - low), np.nan_to_num(high - mean)])
+    ax.errorbar(x, mean, yerr=np.clip(err, 0, None), capsize=2.5, lw=1, ls="", zorder=6,
+                **style)
+
+
+def _draw_profile_gaps(ax, overlay: pd.DataFrame) -> list:
+    opt = overlay["optimistic"].to_numpy(bool)
+    a = overlay["a"].to_numpy(float)
+    m, lo, hi = (overlay[c].to_numpy(float) for c in ("sim_mean", "sim_low", "sim_high"))
+    _errorbars(ax, a[~opt], m[~opt], lo[~opt], hi[~opt], fmt="o", ms=5, color=SIMULATED)
+    _errorbars(ax, a[opt], m[opt], lo[opt], hi[opt], fmt="^", ms=7, color=OPTIMISTIC,
+               mec="black", mew=0.5)
+    return [Line2D([], [], marker="o", color=SIMULATED, ls="", ms=5,
+                   label="simulated mean and 95 % interval"),
+            Line2D([], [], marker="^", color=OPTIMISTIC, mec="black", ls="", ms=7,
+                   label="simulated; fluid optimistic (above the interval)")]
+
+
+def _draw_profile_service_levels(ax, overlay: pd.DataFrame) -> list:
+    places = [c[: -len("_sl_low")] for c in overlay.columns if c.endswith("_sl_low")]
+    a = overlay["a"].to_numpy(float)
+    handles = []
+    for k, place in enumerate(places):
+        colour, marker = SERIES[k % len(SERIES)], "osDv^<>"[k % 7]
+        m, lo, hi = (overlay[f"{place}_sl_{c}"].to_numpy(float) for c in ("mean", "low", "high"))
+        shift = 0.12 * (k - (len(places) - 1) / 2)  # side by side, not on top of each other
+        _errorbars(ax, a + shift, m, lo, hi, fmt=marker, ms=4.5, color=colour)
+        ax.axhline(float(overlay[f"{place}_sl_goal"].iloc[0]), color=colour, ls="--", lw=0.9)
+        handles.append(Line2D([], [], marker=marker, color=colour, ls="--", lw=0.9, ms=5,
+                              label=f"{place}: simulated service level (goal dashed)"))
+    ax.set_ylim(0, 1.05)
+    ax.set_ylabel("share served within the target time")
+    ax.set_title("simulated service level per target (mean and 95 % interval)", pad=10)
+    return handles
+
+
 # --- the simulated overlay -----------------------------------------------------------------------
 
 
-def _integer_points(diagram: PhaseDiagram, max_points: int) -> list[tuple[int, int]]:
-    (a0, a1), (b0, b1) = (diagram.ranges[p] for p in diagram.axes)
-    a_vals = list(range(math.ceil(a0), math.floor(a1) + 1))
-    b_vals = list(range(math.ceil(b0), math.floor(b1) + 1))
-    if not a_vals or not b_vals:
+def _integer_points(diagram: PhaseDiagram, max_points: int) -> list[tuple[int, ...]]:
+    values = [list(range(math.ceil(lo), math.floor(hi) + 1))
+              for lo, hi in (diagram.ranges[p] for p in diagram.axes)]
+    if not all(values):
         raise ValueError("the diagram's ranges hold no whole staff level")
-    while len(a_vals) * len(b_vals) > max_points:
-        # thin the longer axis, keeping both ends
-        if len(a_vals) >= len(b_vals) and len(a_vals) > 2:
-            a_vals = a_vals[::2] + ([a_vals[-1]] if a_vals[::2][-1] != a_vals[-1] else [])
-        elif len(b_vals) > 2:
-            b_vals = b_vals[::2] + ([b_vals[-1]] if b_vals[::2][-1] != b_vals[-1] else [])
-        else:
+    while math.prod(len(v) for v in values) > max_points:
+        # thin the longest axis, keeping both ends
+        i = max(range(len(values)), key=lambda k: len(values[k]))
+        v = values[i]
+        if len(v) <= 2:
             break
-    return [(a, b) for a in a_vals for b in b_vals]
+        values[i] = v[::2] + ([v[-1]] if v[::2][-1] != v[-1] else [])
+    return list(itertools.product(*values))
 
 
 def _fluid_service_levels(scenario: Scenario) -> dict[str, float]:
@@ -373,7 +541,8 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram, *, reps: int,
     keeping the ends of each axis) with ``reps`` replications each, the same ``seed`` at every
     point (common random numbers), the other pools at the scenario's staff.
 
-    Returns one row per point: a, b (staff of the two axes), fluid_rate and the simulated rate of
+    Returns one row per point: a (staff of the first axis), b (of the second; only with two
+    axes), fluid_rate and the simulated rate of
     the diagram's transitions (sim_mean, sim_low, sim_high, n; per the scenario's time unit),
     gap = (fluid − simulated mean) / simulated mean, rate_optimistic and optimistic (the fluid
     rate above the simulated interval); for every place with a service-level target:
@@ -384,7 +553,8 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram, *, reps: int,
     abandonment_mean/_low/_high (all sources); unstable (replications stopped at the job limit).
     ``executor``/``workers`` as in :func:`desim.replicate` (one local process pool is made and
     shared by all points when neither is given); ``out``/``resume``: keep each point's
-    replications in ``out/<a><A>-<b><B>`` (see :func:`desim.replicate`)."""
+    replications in ``out/<a><A>-<b><B>`` (``out/<a><A>`` with one axis; see
+    :func:`desim.replicate`)."""
     points = _integer_points(diagram, max_points)
     targets = scenario.targets.service
     own_pool = None
@@ -395,20 +565,22 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram, *, reps: int,
     pool = executor or own_pool
     rows = []
     try:
-        for a, b in points:
-            variant = with_staff(scenario, {diagram.axes[0]: a, diagram.axes[1]: b})
+        for pt in points:
+            staff = dict(zip(diagram.axes, pt))
+            variant = with_staff(scenario, staff)
             sim = desim.replicate(variant, reps=reps, horizon=horizon, warmup=warmup, seed=seed,
                                   executor=pool, workers=1 if pool is None else None,
                                   progress=progress,
                                   out=None if out is None else os.path.join(
-                                      out, f"{diagram.axes[0]}{a}-{diagram.axes[1]}{b}"),
+                                      out, "-".join(f"{p}{n}" for p, n in staff.items())),
                                   resume=resume)
             rate = Estimate.from_values(sum(sim.raw("transition", q, "rate") for q in diagram.of))
-            fluid = float(diagram.rate_at(a, b))
+            fluid = float(diagram.rate_at(*pt))
             gap = (fluid - rate.mean) / rate.mean if rate.mean else math.nan
-            row = dict(a=a, b=b, fluid_rate=fluid, sim_mean=rate.mean, sim_low=rate.low,
-                       sim_high=rate.high, n=rate.n, gap=gap,
-                       rate_optimistic=bool(math.isfinite(rate.high) and fluid > rate.high))
+            row = dict(zip("ab", pt)) | dict(
+                fluid_rate=fluid, sim_mean=rate.mean, sim_low=rate.low, sim_high=rate.high,
+                n=rate.n, gap=gap,
+                rate_optimistic=bool(math.isfinite(rate.high) and fluid > rate.high))
             estimates = target_estimates(scenario, sim)
             fluid_sl = _fluid_service_levels(variant)
             sl_opt = False

@@ -55,14 +55,15 @@ def phases(args) -> Outcome:
     from fluid.phases import phase_diagram
 
     from .phase_plot import phase_figure, phase_overlay
-    from .report import write_report
 
     s = _load(args)
+    if len(args.axes) not in (1, 2):
+        raise InputError(f"fluidgap phases: --axes takes one or two pools (got {len(args.axes)})")
     for pool in args.axes:
         if pool not in s.pools:
             raise InputError(f"fluidgap phases: --axes names {pool!r}, not a pool of the "
                              f"scenario (pools: {', '.join(s.pools)})")
-    if args.axes[0] == args.axes[1]:
+    if len(set(args.axes)) != len(args.axes):
         raise InputError("fluidgap phases: --axes needs two different pools")
     if args.of is not None and args.of not in s.transitions:
         raise InputError(f"fluidgap phases: --of {args.of!r} is not a transition of the scenario")
@@ -84,8 +85,23 @@ def phases(args) -> Outcome:
     if overlay is not None:
         doc["overlay"] = overlay.to_dict("records")
     text = phases_text(diagram, overlay)
+    tables = {"pieces" if diagram.pieces else "grid": diagram.to_frame()}
+    if overlay is not None:
+        tables["overlay"] = overlay
+    return _finish(args, text, doc, lambda: phase_figure(diagram, overlay=overlay), "phases",
+                   title=f"fluidgap phases: {s.name}", summary=text.split("\n")[:3],
+                   tables=tables)
+
+
+def _finish(args, text: str, doc: dict, figure, name: str, *, title: str, summary: list[str],
+            tables: dict) -> Outcome:
+    """Add the caution; with --png FILE or --report DIR draw ``figure()`` and write it (the
+    report's result.json is the command's JSON document)."""
+    from .report import write_report
+
+    doc["caution"] = CAUTION
     if args.png or args.report:
-        fig = phase_figure(diagram, overlay=overlay)
+        fig = figure()
         if args.png:
             tmp = f"{args.png}.tmp-{os.getpid()}"
             fig.savefig(tmp, format="png", dpi=120)
@@ -93,49 +109,60 @@ def phases(args) -> Outcome:
             text += f"\n\nfigure written to {args.png}"
             doc["png"] = str(args.png)
         if args.report:
-            tables = {"pieces": diagram.to_frame()}
-            if overlay is not None:
-                tables["overlay"] = overlay
-            files = write_report(args.report, title=f"fluidgap phases: {s.name}",
-                                 summary_lines=text.split("\n")[:3], tables=tables,
-                                 figures={"phases": fig}, json_doc=doc, caution=CAUTION,
-                                 write_png=True)
+            doc["report"] = os.path.join(args.report, "report.html")
+            files = write_report(args.report, title=title, summary_lines=summary,
+                                 tables=tables, figures={name: fig}, json_doc=doc,
+                                 caution=CAUTION, write_png=True)
             text += f"\n\nreport written to {files.html}"
-            doc["report"] = str(files.html)
     else:
         text += "\n\n(draw it with --png FILE or --report DIR)"
-    doc["caution"] = CAUTION
     return Outcome(text=text + "\n\n" + CAUTION, json=doc)
 
 
 def phases_text(d, overlay=None) -> str:
-    a, b = d.axes
+    ax = d.axes
     unit = d.time_unit
-    head = [f"{d.scenario_name}: fluid phase diagram of {d.of_label} over the staff of {a} and {b}",
-            f"rate per {unit} = minimum over the pieces of const + coef_{a} x {a} + coef_{b} x {b}"
+    over = (f"fluid phase diagram of {d.of_label} over the staff of {ax[0]} and {ax[1]}"
+            if len(ax) == 2 else f"fluid {d.of_label} against the staff of {ax[0]}")
+    terms = " + ".join(f"coef_{x} x {x}" for x in ax)
+    head = [f"{d.scenario_name}: {over}",
+            f"rate per {unit} = minimum over the pieces of const + {terms}"
             if d.method == "lp" else
             "method: integrated counter equations on an integer grid (the LP does not apply: "
             "priorities, profiles or schedules); no exact pieces"]
     parts = ["\n".join(head)]
     if d.pieces:
-        rows = [[p.label, fmt(p.const), fmt(p.coef[a]), fmt(p.coef[b]),
-                 f"({fmt(p.witness[0], 3)}, {fmt(p.witness[1], 3)})"] for p in d.pieces]
-        parts.append(format_table(["limiting", "const", f"coef {a}", f"coef {b}",
-                                   f"a point inside ({a}, {b})"], rows))
+        rows = [[p.label, fmt(p.const), *(fmt(p.coef[x]) for x in ax),
+                 "(" + ", ".join(fmt(w, 3) for w in p.witness) + ")"] for p in d.pieces]
+        parts.append(format_table(["limiting", "const", *(f"coef {x}" for x in ax),
+                                   f"a point inside ({', '.join(ax)})"], rows))
+    elif len(ax) == 1:
+        runs: list[list] = []  # consecutive grid points with the same limiting pools
+        for g in sorted(d.grid, key=lambda g: g.a):
+            if runs and runs[-1][0] == g.label:
+                runs[-1][2] = g.a
+            else:
+                runs.append([g.label, g.a, g.a])
+        parts.append(format_table(["limiting", f"{ax[0]} (agents)"],
+                                  [[lab, f"{lo}" if lo == hi else f"{lo}-{hi}"]
+                                   for lab, lo, hi in runs]))
     else:
         labels: dict[str, int] = {}
         for g in d.grid:
             labels[g.label] = labels.get(g.label, 0) + 1
         parts.append(format_table(["limiting", "grid points"], list(labels.items())))
-    here = (d.staff[a], d.staff[b])
-    parts.append(f"at the scenario's staff ({a} {fmt(here[0])}, {b} {fmt(here[1])}): "
-                 f"{fmt(float(d.rate_at(*here)))} per {unit}; inflow-limited rate "
-                 f"{fmt(d.inflow_rate)}")
+    here = tuple(d.staff[x] for x in ax)
+    try:
+        at = f"{fmt(float(d.rate_at(*here)))} per {unit}"
+    except ValueError:  # a counters grid drawn away from the scenario's staff
+        at = "outside the drawn range"
+    parts.append(f"at the scenario's staff ({', '.join(f'{x} {fmt(v)}' for x, v in zip(ax, here))})"
+                 f": {at}; inflow-limited rate {fmt(d.inflow_rate)}")
     if overlay is not None and len(overlay):
-        rows = [[int(r["a"]), int(r["b"]), fmt(r["fluid_rate"]),
+        rows = [[*(int(r[k]) for k in "ab"[:len(ax)]), fmt(r["fluid_rate"]),
                  fmt_estimate(_Est(r["sim_mean"], r["sim_low"], r["sim_high"])),
                  "yes" if r["optimistic"] else ""] for r in overlay.to_dict("records")]
-        parts.append(format_table([a, b, "fluid rate", "simulated [95 % interval]",
+        parts.append(format_table([*ax, "fluid rate", "simulated [95 % interval]",
                                    "fluid optimistic"], rows,
                                   title=f"simulated at integer staff ({int(overlay['n'].max())} "
                                   "replications per point, common random numbers):"))
@@ -150,6 +177,7 @@ class _Est:
 
 
 def staff(args) -> Outcome:
+    from .staff_plot import staffing_figure
     from .staffing_search import staff_search
 
     s = _load(args)
@@ -166,8 +194,23 @@ def staff(args) -> Outcome:
     finally:
         progress.close()
     doc = result.to_json()
-    doc["caution"] = CAUTION
-    return Outcome(text=staff_text(s, result) + "\n\n" + CAUTION, json=doc)
+    fp = result.fluid_plan
+    pools = fp.to_frame().rename(columns={"staff": "fluid_plan"})
+    pools["plan"] = [result.plan[p] for p in pools["pool"]]
+    tables = {"fluid_plan": pools}
+    if result.tried:
+        tables = {"plans": result.to_frame()} | tables
+    summary = [f"{result.scenario_name}: staffing ({result.method})",
+               f"fluid plan: {_staff_line(fp.staff)} (cost {fmt(fp.cost)})",
+               f"plan: {_staff_line(result.plan)} (cost {fmt(result.plan_cost)})"
+               + ("" if result.meets is None else "; meets every target with confidence"
+                  if result.meets else "; does NOT meet every target")]
+    return _finish(args, staff_text(s, result), doc, lambda: staffing_figure(result), "staffing",
+                   title=f"fluidgap staff: {s.name}", summary=summary, tables=tables)
+
+
+def _staff_line(staff) -> str:
+    return ", ".join(f"{p} {n}" for p, n in staff.items())
 
 
 def staff_text(s, r) -> str:

@@ -1,4 +1,4 @@
-"""Exact fluid phase diagrams over the staff of two pools (design.md §4.1).
+"""Exact fluid phase diagrams over the staff of one or two pools (design.md §4.1).
 
 Without priorities and with constant rates the long-run fluid rate of a set of transitions (by
 default those that end jobs) is the optimum ``V(M)`` of the throughput LP, whose staff ``M`` only
@@ -9,21 +9,23 @@ from above everywhere (LP duality):
     V(M) ≤ V(M⁰) + Σ_p y_p (M_p − M⁰_p),    y_p = d V / d M_p (the marking duals).
 
 With the other pools at the scenario's staff each dual solution is one *piece*
-``const + coef_a a + coef_b b``. Pieces are collected by a cutting-plane loop: the lower envelope
-``E`` of the pieces found so far is an upper bound of ``V``; wherever ``E`` exceeds the LP value
-at a test point, the LP's own piece there is added. The test points are the vertices of the
-envelope over the whole quadrant of non-negative staff (points where three pieces meet, or two on
-an axis), plus a coarse grid. The loop stops when ``E = V`` at every vertex, which proves
-``E = V`` on the whole quadrant: on each cell of ``E`` (where one piece is smallest) ``V`` is
-concave and equal to the affine ``E`` at the cell's vertices, hence ``V ≥ E`` on their convex
-hull; along the cell's unbounded directions (non-negative, since the cells live in the quadrant)
-``E`` is flat (the envelope contains a piece without axis coefficients, found at a staff beyond
-every pool's offered work) and ``V`` does not decrease (more staff never lowers the LP optimum).
+``const + Σ_i coef_i x_i`` over the staff ``x`` of the axis pools (one or two). Pieces are
+collected by a cutting-plane loop: the lower envelope ``E`` of the pieces found so far is an
+upper bound of ``V``; wherever ``E`` exceeds the LP value at a test point, the LP's own piece
+there is added. The test points are the vertices of the envelope over all non-negative staff
+(see :func:`_vertices`), plus a coarse grid. The loop stops when ``E = V`` at every
+vertex, which proves ``E = V`` for all non-negative staff: on each cell of ``E`` (where one piece
+is smallest) ``V`` is concave and equal to the affine ``E`` at the cell's vertices, hence
+``V ≥ E`` on their convex hull; along the cell's unbounded directions (non-negative, since the
+cells live in the orthant) ``E`` is flat (the envelope contains a piece without axis
+coefficients, found at a staff beyond every pool's offered work) and ``V`` does not decrease
+(more staff never lowers the LP optimum).
 
 A piece is labelled by its *limiting pools*: the axis pools with a positive coefficient, and the
 other pools whose one more agent raises the rate at a point inside the piece's cell (a one-agent
 difference, as :func:`fluid.analysis.throughput` finds bottlenecks); "inflow" when there are none.
-Pieces whose cell has no interior in the quadrant are dropped (they never decide the minimum).
+Pieces whose cell has no interior among the non-negative staff are dropped (they never decide
+the minimum).
 
 With priorities, arrival profiles or traces, or schedules, the LP does not apply: the counter
 equations are integrated at the integer staff points of a grid (:func:`fluid.counters.
@@ -62,25 +64,29 @@ INFLOW = "inflow"
 
 @dataclass(frozen=True)
 class Piece:
-    """One affine piece: rate = ``const + coef[a]·a + coef[b]·b`` (per time unit) with the other
-    pools at the scenario's staff (their terms are inside ``const``). ``coef_all``: the LP dual
-    of every pool's staff (d rate / d staff, per agent) at the point the piece came from;
-    ``limiting``: limiting pools in the piece's cell (empty: inflow-limited); ``witness``: a
-    staff point (a, b) inside the cell."""
+    """One affine piece: rate = ``const + Σ coef[x]·x`` over the axis pools x (per time unit)
+    with the other pools at the scenario's staff (their terms are inside ``const``).
+    ``coef_all``: the LP dual of every pool's staff (d rate / d staff, per agent) at the point
+    the piece came from; ``limiting``: limiting pools in the piece's cell (empty:
+    inflow-limited); ``witness``: a staff point inside the cell (one value per axis)."""
 
     const: float
     coef: dict[str, float]
     coef_all: dict[str, float]
     limiting: tuple[str, ...]
-    witness: tuple[float, float]
+    witness: tuple[float, ...]
 
     @property
     def label(self) -> str:
         return "+".join(self.limiting) if self.limiting else INFLOW
 
-    def value(self, a, b):
-        ca, cb = self.coef.values()
-        return self.const + ca * np.asarray(a, dtype=float) + cb * np.asarray(b, dtype=float)
+    def value(self, *staff):
+        """The piece at ``staff`` (one scalar or array per axis, in axis order)."""
+        if len(staff) != len(self.coef):
+            raise TypeError(f"the piece has {len(self.coef)} axis pool(s), got {len(staff)} "
+                            "staff values")
+        return sum((c * np.asarray(x, dtype=float) for c, x in zip(self.coef.values(), staff)),
+                   np.asarray(self.const, dtype=float))
 
     def to_json(self) -> dict:
         return {"const": self.const, "coef": dict(self.coef), "limiting": list(self.limiting),
@@ -90,12 +96,17 @@ class Piece:
 
 @dataclass(frozen=True)
 class GridPoint:
-    """Counter-equation rate (per time unit) at integer staff (a, b) and its limiting pools."""
+    """Counter-equation rate (per time unit) at integer staff ``a`` (first axis) and ``b``
+    (second axis; None with one axis), and its limiting pools."""
 
     a: int
-    b: int
+    b: int | None
     rate: float
     limiting: tuple[str, ...]
+
+    @property
+    def point(self) -> tuple[int, ...]:
+        return (self.a,) if self.b is None else (self.a, self.b)
 
     @property
     def label(self) -> str:
@@ -104,20 +115,20 @@ class GridPoint:
 
 @dataclass(frozen=True)
 class PhaseDiagram:
-    """Fluid rate of ``of`` (transitions summed) over the staff of the two ``axes`` pools.
+    """Fluid rate of ``of`` (transitions summed) over the staff of the ``axes`` pools (one or
+    two).
 
     ``method``: "lp" (exact ``pieces``, valid for all non-negative staff) or "counters-grid"
     (``grid`` of integer points, no pieces). ``ranges``: pool -> (low, high) staff drawn;
     ``staff``: the scenario's staff per pool (mean staff with a schedule); ``inflow_rate``: the
     rate of ``of`` when no pool limits; ``of_label``: what ``of`` is, in words; ``lp_solves``:
-    LPs (or counter integrations) used;
-    ``max_mismatch``: largest relative excess of the envelope over the LP at the test points
-    (≤ :data:`MATCH_TOLERANCE` when ``exact``)."""
+    LPs (or counter integrations) used; ``max_mismatch``: largest relative excess of the
+    envelope over the LP at the test points (≤ :data:`MATCH_TOLERANCE` when ``exact``)."""
 
     scenario_name: str
     time_unit: str
     of: tuple[str, ...]
-    axes: tuple[str, str]
+    axes: tuple[str, ...]
     ranges: dict[str, tuple[float, float]]
     staff: dict[str, float]
     method: str
@@ -132,62 +143,74 @@ class PhaseDiagram:
 
     # --- evaluation ------------------------------------------------------------------------------
 
-    def rate_at(self, a, b):
-        """Fluid rate at staff (a, b) (scalars or arrays). Exact for the LP method; for the
-        counters grid, bilinear interpolation between grid points (exact on them)."""
+    def rate_at(self, *staff):
+        """Fluid rate at ``staff`` (one scalar or array per axis). Exact for the LP method; for
+        the counters grid, linear (one axis) or bilinear (two) interpolation between grid points
+        (exact on them)."""
+        self._check_point(staff)
         if self.method == "lp":
-            return self._envelope(a, b)[0]
-        return self._interpolate(a, b)
+            return self._envelope(*staff)[0]
+        return self._interpolate(*staff)
 
-    def piece_at(self, a, b):
-        """Index of the piece that decides the rate at (a, b) (LP method only)."""
+    def piece_at(self, *staff):
+        """Index of the piece that decides the rate at ``staff`` (LP method only)."""
         if self.method != "lp":
             raise ValueError("a counters-grid diagram has no pieces")
-        return self._envelope(a, b)[1]
+        self._check_point(staff)
+        return self._envelope(*staff)[1]
 
-    def label_at(self, a: float, b: float) -> str:
-        """Limiting pools at (a, b) joined by "+", or "inflow"."""
+    def label_at(self, *staff: float) -> str:
+        """Limiting pools at ``staff`` joined by "+", or "inflow"."""
         if self.method == "lp":
-            return self.pieces[int(self.piece_at(a, b))].label
-        p = min(self.grid, key=lambda g: (g.a - a) ** 2 + (g.b - b) ** 2)
+            return self.pieces[int(self.piece_at(*staff))].label
+        self._check_point(staff)
+        p = min(self.grid, key=lambda g: sum((u - v) ** 2 for u, v in zip(g.point, staff)))
         return p.label
 
-    def _envelope(self, a, b):
-        a, b = np.broadcast_arrays(np.asarray(a, dtype=float), np.asarray(b, dtype=float))
-        values = np.stack([p.value(a, b) for p in self.pieces])
+    def _check_point(self, staff) -> None:
+        if len(staff) != len(self.axes):
+            raise TypeError(f"the diagram has {len(self.axes)} axis pool(s), got {len(staff)} "
+                            "staff values")
+
+    def _envelope(self, *staff):
+        staff = np.broadcast_arrays(*(np.asarray(x, dtype=float) for x in staff))
+        values = np.stack([np.broadcast_to(p.value(*staff), staff[0].shape)
+                           for p in self.pieces])
         idx = np.argmin(values, axis=0)
         out = np.take_along_axis(values, idx[None, ...], axis=0)[0]
         if out.ndim == 0:
             return float(out), int(idx)
         return out, idx
 
-    def _interpolate(self, a, b):
+    def _interpolate(self, *staff):
         from scipy.interpolate import RegularGridInterpolator
 
-        # the grid is a full rectangle listed a-major (see _grid_diagram)
-        a_vals = np.array(sorted({g.a for g in self.grid}), dtype=float)
-        b_vals = np.array(sorted({g.b for g in self.grid}), dtype=float)
-        if a_vals.size < 2 or b_vals.size < 2:
+        # the grid is a full rectangle listed in axis-major order (see _grid_diagram)
+        values = [np.array(sorted({g.point[i] for g in self.grid}), dtype=float)
+                  for i in range(len(self.axes))]
+        if any(v.size < 2 for v in values):
             raise ValueError("the grid needs two values on each axis to interpolate")
-        table = np.array([g.rate for g in self.grid]).reshape(a_vals.size, b_vals.size)
-        f = RegularGridInterpolator((a_vals, b_vals), table, bounds_error=True)
-        a, b = np.broadcast_arrays(np.asarray(a, dtype=float), np.asarray(b, dtype=float))
-        out = f(np.stack([a.ravel(), b.ravel()], axis=-1)).reshape(a.shape)
+        table = np.array([g.rate for g in self.grid]).reshape([v.size for v in values])
+        f = RegularGridInterpolator(tuple(values), table, bounds_error=True)
+        staff = np.broadcast_arrays(*(np.asarray(x, dtype=float) for x in staff))
+        out = f(np.stack([x.ravel() for x in staff], axis=-1)).reshape(staff[0].shape)
         return float(out) if out.ndim == 0 else out
 
-    def box(self) -> tuple[float, float, float, float]:
-        """(a low, a high, b low, b high): the drawn ranges of the two axes."""
-        (a0, a1), (b0, b1) = (self.ranges[x] for x in self.axes)
-        return a0, a1, b0, b1
+    def box(self) -> tuple[float, ...]:
+        """(low, high) of each axis in turn: (a low, a high, b low, b high) with two axes."""
+        return tuple(x for p in self.axes for x in self.ranges[p])
 
     # --- output ----------------------------------------------------------------------------------
 
     def to_json(self) -> dict:
         """``{"of", "axes", "pieces": [{"const", "coef": {pool: x}, "limiting": [pools], ...}],
-        "method", "ranges", "notes", ...}``: the rate at staff (a, b), other pools as in the
-        scenario, is the minimum over pieces of const + Σ coef × staff, for every non-negative
-        staff (method "lp"). "limiting" is empty for the inflow-limited piece (its "label" is
-        "inflow"). With method "counters-grid" "pieces" is empty and "grid" lists the points."""
+        "method", "ranges", "notes", ...}``: the rate at the axis pools' staff, other pools as
+        in the scenario, is the minimum over pieces of const + Σ coef × staff, for every
+        non-negative staff (method "lp"). "limiting" is empty for the inflow-limited piece (its
+        "label" is "inflow"). With method "counters-grid" "pieces" is empty and "grid" lists the
+        points ("a": staff of the first axis, "b" of the second when there are two)."""
+        grid = [{"a": g.a, **({} if g.b is None else {"b": g.b}), "rate": g.rate,
+                 "limiting": list(g.limiting), "label": g.label} for g in self.grid]
         return {
             "scenario": self.scenario_name,
             "time_unit": self.time_unit,
@@ -202,30 +225,29 @@ class PhaseDiagram:
             "exact": self.exact,
             "lp_solves": self.lp_solves,
             "max_mismatch": (self.max_mismatch if math.isfinite(self.max_mismatch) else None),
-            "grid": [{"a": g.a, "b": g.b, "rate": g.rate, "limiting": list(g.limiting),
-                      "label": g.label} for g in self.grid],
+            "grid": grid,
             "notes": list(self.notes),
         }
 
     def to_frame(self) -> pd.DataFrame:
-        """LP method: one row per piece (piece, const, coef_<a>, coef_<b>, label). Counters grid:
-        one row per point (a, b, rate, label), with the axis pools as column names."""
-        a, b = self.axes
+        """LP method: one row per piece (piece, const, coef_<axis> per axis, label). Counters
+        grid: one row per point (the axis pools as column names, rate, label)."""
         if self.method == "lp":
-            rows = [(i, p.const, p.coef[a], p.coef[b], p.label) for i, p in enumerate(self.pieces)]
-            return pd.DataFrame(rows, columns=["piece", "const", f"coef_{a}", f"coef_{b}",
-                                               "label"])
-        rows = [(g.a, g.b, g.rate, g.label) for g in self.grid]
-        return pd.DataFrame(rows, columns=[a, b, "rate", "label"])
+            rows = [(i, p.const, *(p.coef[x] for x in self.axes), p.label)
+                    for i, p in enumerate(self.pieces)]
+            return pd.DataFrame(rows, columns=["piece", "const",
+                                               *(f"coef_{x}" for x in self.axes), "label"])
+        rows = [(*g.point, g.rate, g.label) for g in self.grid]
+        return pd.DataFrame(rows, columns=[*self.axes, "rate", "label"])
 
 
 # --- inputs --------------------------------------------------------------------------------------
 
 
-def _check_axes(scenario: Scenario, axes: Sequence[str]) -> tuple[str, str]:
-    axes = tuple(axes)
-    if len(axes) != 2 or axes[0] == axes[1]:
-        raise ValueError(f"axes must be two different pools (got {list(axes)})")
+def _check_axes(scenario: Scenario, axes: str | Sequence[str]) -> tuple[str, ...]:
+    axes = (axes,) if isinstance(axes, str) else tuple(axes)
+    if len(axes) not in (1, 2) or len(set(axes)) != len(axes):
+        raise ValueError(f"axes must be one pool or two different pools (got {list(axes)})")
     for p in axes:
         if p not in scenario.pools:
             raise ValueError(f"axis {p!r} is not a pool (pools: {', '.join(scenario.pools)})")
@@ -265,14 +287,15 @@ def _ranges(scenario, axes, ranges, staff, work) -> dict[str, tuple[float, float
 
 def phase_diagram(
     scenario: Scenario,
-    axes: Sequence[str],
+    axes: str | Sequence[str],
     *,
     of: str | Iterable[str] | None = None,
     ranges: Mapping[str, tuple[float, float]] | None = None,
     max_solves: int = 2000,
     max_grid: int = 300,
 ) -> PhaseDiagram:
-    """Fluid phase diagram of ``scenario`` over the staff of the two pools ``axes``.
+    """Fluid phase diagram of ``scenario`` over the staff of the pools ``axes`` (one pool, or
+    two different pools); the other pools keep the scenario's staff.
 
     ``of``: a transition or several (their rates are summed; default: the transitions that end
     jobs); ``ranges``: pool -> (low, high) staff to draw (default 0 to the larger of twice the
@@ -299,10 +322,15 @@ def phase_diagram(
 
 
 # --- the LP method -------------------------------------------------------------------------------
+# Inside the loop a piece is a tuple (const, coef of each axis..., duals of every pool).
+
+
+def _key(point) -> tuple[float, ...]:
+    return tuple(round(float(x), 12) for x in point)
 
 
 class _Oracle:
-    """LP value and dual piece at staff points (cached), with the other pools fixed."""
+    """LP value and dual piece at staff points of the axes (cached), other pools fixed."""
 
     def __init__(self, scenario: Scenario, axes, of, scale: float):
         self.scenario = scenario
@@ -321,54 +349,60 @@ class _Oracle:
                  for p, y in sol.marking_duals.items()}
         return float(sol.objective), duals
 
-    def at(self, a: float, b: float):
-        key = (round(a, 12), round(b, 12))
+    def at(self, *point: float):
+        key = _key(point)
         if key not in self.cache:
-            staff = self.base | {self.axes[0]: a, self.axes[1]: b}
-            value, duals = self.value_at(staff)
-            ca, cb = duals[self.axes[0]], duals[self.axes[1]]
-            self.cache[key] = (value, (value - ca * a - cb * b, ca, cb, duals))
+            value, duals = self.value_at(self.base | dict(zip(self.axes, point)))
+            coefs = tuple(duals[p] for p in self.axes)
+            const = value - sum(c * x for c, x in zip(coefs, point))
+            self.cache[key] = (value, (const, *coefs, duals))
         return self.cache[key]
 
 
 def _same(p, q, scale: float) -> bool:
     return (abs(p[0] - q[0]) <= MATCH_TOLERANCE * scale
-            and abs(p[1] - q[1]) <= MATCH_TOLERANCE * max(1.0, abs(p[1]))
-            and abs(p[2] - q[2]) <= MATCH_TOLERANCE * max(1.0, abs(p[2])))
+            and all(abs(x - y) <= MATCH_TOLERANCE * max(1.0, abs(x))
+                    for x, y in zip(p[1:-1], q[1:-1])))
+
+
+def _table(pieces: list) -> np.ndarray:
+    """(pieces, 1 + axes) array: const, then the coefficient of each axis."""
+    return np.array([p[:-1] for p in pieces], dtype=float)
+
+
+def _values(arr: np.ndarray, pts: np.ndarray) -> np.ndarray:
+    """Every piece at every point: (pieces, points)."""
+    return arr[:, :1] + arr[:, 1:] @ pts.T
 
 
 def _envelope(pieces: list, pts: np.ndarray) -> np.ndarray:
-    arr = np.array([p[:3] for p in pieces])
-    return (arr[:, :1] + arr[:, 1:2] * pts[None, :, 0] + arr[:, 2:3] * pts[None, :, 1]).min(axis=0)
+    return _values(_table(pieces), pts).min(axis=0)
 
 
 def _vertices(pieces: list, scale: float) -> np.ndarray:
-    """Vertices of the lower envelope of ``pieces`` over the quadrant a, b ≥ 0: the origin, the
-    points of an axis where two pieces tie, and the points where three pieces tie, kept when the
-    pieces that tie there are the smallest."""
-    arr = np.array([p[:3] for p in pieces])
-    cands = [(0.0, 0.0)]
-    n = len(arr)
-    for i, j in itertools.combinations(range(n), 2):
-        dc, da, db = arr[i] - arr[j]
-        if abs(db) > 1e-15:
-            cands.append((0.0, -dc / db))  # on the axis a = 0
-        if abs(da) > 1e-15:
-            cands.append((-dc / da, 0.0))
-    for i, j, k in itertools.combinations(range(n), 3):
-        m = np.array([arr[i, 1:] - arr[j, 1:], arr[i, 1:] - arr[k, 1:]])
-        det = np.linalg.det(m)
-        if abs(det) < 1e-14:
-            continue
-        rhs = -np.array([arr[i, 0] - arr[j, 0], arr[i, 0] - arr[k, 0]])
-        cands.append(tuple(np.linalg.solve(m, rhs)))
-    pts = np.array([c for c in cands if c[0] >= -1e-9 and c[1] >= -1e-9 and np.isfinite(c).all()])
+    """Vertices of the lower envelope of ``pieces`` over the non-negative staff: points where
+    the pieces that tie, plus the axes held at 0, fix a point (two axes: three pieces, two on an
+    axis, or the origin; one axis: two pieces, or 0), kept when those pieces are the smallest."""
+    arr = _table(pieces)
+    n = arr.shape[1] - 1
+    cands = [np.zeros(n)]
+    for zero_count in range(n):
+        for zero in itertools.combinations(range(n), zero_count):
+            free = [j for j in range(n) if j not in zero]
+            for first, *rest in itertools.combinations(range(len(arr)), len(free) + 1):
+                # `first` ties with each j of `rest`: (coef_first − coef_j)·x = const_j − const_first
+                m = np.array([arr[first, 1:][free] - arr[j, 1:][free] for j in rest])
+                if abs(np.linalg.det(m)) < 1e-14:
+                    continue
+                x = np.zeros(n)
+                x[free] = np.linalg.solve(m, arr[rest, 0] - arr[first, 0])
+                cands.append(x)
+    pts = np.array([c for c in cands if (c >= -1e-9).all() and np.isfinite(c).all()])
     pts = np.clip(pts, 0.0, None)
-    values = arr[:, :1] + arr[:, 1:2] * pts[None, :, 0] + arr[:, 2:3] * pts[None, :, 1]
+    values = _values(arr, pts)
     low = values.min(axis=0)
     ties = (values <= low[None, :] + 1e-9 * scale).sum(axis=0)
-    on_axis = (pts[:, 0] == 0) | (pts[:, 1] == 0)
-    keep = (ties >= 3) | (on_axis & (ties >= 2)) | ((pts[:, 0] == 0) & (pts[:, 1] == 0))
+    keep = ties + (pts == 0).sum(axis=1) >= n + 1
     return np.unique(np.round(pts[keep], 12), axis=0)
 
 
@@ -378,8 +412,7 @@ def _lp_diagram(scenario, axes, of, work, max_solves, common) -> PhaseDiagram:
     scale = max(inflow, 1e-12)
     oracle = _Oracle(scenario, axes, of, scale)
     tol = MATCH_TOLERANCE * scale
-    no_pool = {p: 0.0 for p in scenario.pools}
-    pieces: list = [(inflow, 0.0, 0.0, no_pool)]
+    pieces: list = [(inflow, *(0.0 for _ in axes), {p: 0.0 for p in scenario.pools})]
 
     def add(piece) -> bool:
         if any(_same(piece, q, scale) for q in pieces):
@@ -388,44 +421,42 @@ def _lp_diagram(scenario, axes, of, work, max_solves, common) -> PhaseDiagram:
         return True
 
     notes = []
+    ranges = common["ranges"]
     # a staff beyond every axis pool's offered work: its piece has no axis coefficient (the
     # plateau that makes the envelope flat along every unbounded direction)
-    a0, a1, b0, b1 = (x for p in axes for x in common["ranges"][p])
-    far = [max(2 * w + 1 if math.isfinite(w) else 0.0, 2 * hi + 1)
-           for w, hi in ((work[axes[0]], a1), (work[axes[1]], b1))]
+    far = [max(2 * work[p] + 1 if math.isfinite(work[p]) else 0.0, 2 * ranges[p][1] + 1)
+           for p in axes]
     flat = False
     for _ in range(60):
         _, piece = oracle.at(*far)
         add(piece)
-        if piece[1] == 0 and piece[2] == 0:
+        if not any(piece[1:-1]):
             flat = True
             break
         far = [2 * x for x in far]
     if not flat:
-        notes.append("no staff level was found at which neither axis pool limits: the pieces "
-                     "are exact within the drawn ranges only")
-    seeds = [(float(common["staff"][axes[0]]), float(common["staff"][axes[1]]))]
-    seeds += [(a, b) for a in np.linspace(a0, a1, 5) for b in np.linspace(b0, b1, 5)]
+        notes.append("no staff level was found at which no axis pool limits: the pieces are "
+                     "exact within the drawn ranges only")
+    seeds = [tuple(float(common["staff"][p]) for p in axes)]
+    seeds += list(itertools.product(*(np.linspace(*ranges[p], 5) for p in axes)))
     checked: dict = {}
     converged = False
     while oracle.solves < max_solves:
-        pts = np.vstack([_vertices(pieces, scale), np.array(seeds)])
-        todo = [tuple(x) for x in pts if (round(x[0], 12), round(x[1], 12)) not in checked]
+        pts = np.vstack([_vertices(pieces, scale), np.array(seeds, dtype=float)])
+        todo = [tuple(x) for x in pts if _key(x) not in checked]
         if not todo:
             converged = True
             break
         envelope = _envelope(pieces, np.array(todo))
         grew = False
-        for (a, b), e in zip(todo, envelope):
-            value, piece = oracle.at(a, b)
-            checked[(round(a, 12), round(b, 12))] = value
+        for point, e in zip(todo, envelope):
+            value, piece = oracle.at(*point)
+            checked[_key(point)] = value
             if e - value > tol:
                 # (when the LP's piece is already known the excess is rounding; it is reported
                 # in max_mismatch below)
                 grew |= add(piece)
-        if not grew and all(
-            (round(a, 12), round(b, 12)) in checked for a, b in _vertices(pieces, scale)
-        ):
+        if not grew and all(_key(x) in checked for x in _vertices(pieces, scale)):
             converged = True
             break
     if not converged:
@@ -433,15 +464,17 @@ def _lp_diagram(scenario, axes, of, work, max_solves, common) -> PhaseDiagram:
                      "matching the LP at every vertex")
     # the envelope must equal the LP at every test point (above it: a piece found later was
     # missing; below it: a piece that is not an upper bound, i.e. an inexact dual)
-    where = np.array(list(checked))
-    values = np.array(list(checked.values()))
-    worst = float(np.max(np.abs(_envelope(pieces, where) - values)) / scale)
-    final = _labelled(oracle, axes, _needed(pieces, scale), scale)
+    where = np.array(list(checked), dtype=float).reshape(-1, len(axes))
+    values = np.array(list(checked.values()), dtype=float)
+    worst = (float(np.max(np.abs(_envelope(pieces, where) - values)) / scale) if checked
+             else math.inf)
+    final = _labelled(oracle, axes, _needed(pieces, scale))
     exact = bool(converged and flat and worst <= MATCH_TOLERANCE)
+    which = "axis pool" if len(axes) == 1 else "two axis pools"
     if exact:
         notes.append("exact: the envelope of the pieces equals the throughput LP at every vertex, "
-                     "hence for every non-negative staff of the two axis pools (other pools at "
-                     "the scenario's staff)")
+                     f"hence for every non-negative staff of the {which} (other pools at the "
+                     "scenario's staff)")
     else:
         notes.append(f"not proven exact (largest relative mismatch with the LP at a test point: "
                      f"{worst:.3g})")
@@ -453,36 +486,37 @@ def _lp_diagram(scenario, axes, of, work, max_solves, common) -> PhaseDiagram:
 
 
 def _needed(pieces: list, scale: float) -> list[tuple]:
-    """Pieces whose cell has an interior in the quadrant, each with the centre of the largest
-    disc inside its cell (Chebyshev centre, by an LP) as a witness point. The search stays in a
-    square twice as wide as the envelope's vertices reach: every cell has a vertex, and an
-    interior near it, there."""
+    """Pieces whose cell has an interior among the non-negative staff, each with the centre of
+    the largest ball inside its cell (Chebyshev centre, by an LP) as a witness point. The search
+    stays in a box twice as wide as the envelope's vertices reach: every cell has a vertex, and
+    an interior near it, there."""
     verts = _vertices(pieces, scale)
     reach = 2 * float(verts.max()) + 1 if verts.size else 1.0
-    arr = np.array([p[:3] for p in pieces])
+    arr = _table(pieces)
+    n = arr.shape[1] - 1
+    box = np.column_stack([np.vstack([-np.eye(n), np.eye(n)]), np.ones(2 * n)])
+    box_rhs = np.concatenate([np.zeros(n), np.full(n, reach)])
     out = []
     for i in range(len(pieces)):
         others = np.delete(arr, i, axis=0)
-        # variables (a, b, r): the disc of radius r about (a, b) lies where piece i is the
-        # smallest and inside [0, reach]²
+        # variables (x..., r): the ball of radius r about x lies where piece i is the smallest
+        # and inside [0, reach]^n
         k = arr[i, 1:] - others[:, 1:]
-        rows = [np.column_stack([k, np.hypot(k[:, 0], k[:, 1])])]
-        rhs = [others[:, 0] - arr[i, 0]]
-        rows.append(np.array([[-1, 0, 1], [0, -1, 1], [1, 0, 1], [0, 1, 1]], dtype=float))
-        rhs.append(np.array([0.0, 0.0, reach, reach]))
-        res = linprog([0, 0, -1], A_ub=np.vstack(rows), b_ub=np.concatenate(rhs),
-                      bounds=[(None, None), (None, None), (0, None)], method="highs")
+        rows = np.vstack([np.column_stack([k, np.linalg.norm(k, axis=1)]), box])
+        rhs = np.concatenate([others[:, 0] - arr[i, 0], box_rhs])
+        res = linprog([0] * n + [-1], A_ub=rows, b_ub=rhs,
+                      bounds=[(None, None)] * n + [(0, None)], method="highs")
         if res.status == 0 and -res.fun > 1e-9 * reach:
-            out.append((pieces[i], (float(res.x[0]), float(res.x[1]))))
+            out.append((pieces[i], tuple(float(x) for x in res.x[:n])))
     return out
 
 
-def _labelled(oracle: _Oracle, axes, found: list, scale: float) -> list[Piece]:
-    pools = list(oracle.scenario.pools)
+def _labelled(oracle: _Oracle, axes, found: list) -> list[Piece]:
     out = []
-    for (const, ca, cb, duals), (wa, wb) in found:
+    for piece, witness in found:
+        duals = piece[-1]
         limiting = []
-        for p in pools:
+        for p in oracle.scenario.pools:
             if duals[p] <= 0:
                 continue
             if p in axes:
@@ -490,14 +524,14 @@ def _labelled(oracle: _Oracle, axes, found: list, scale: float) -> list[Piece]:
                 continue
             # a dual of a pool off the axes may be positive at a degenerate point: confirm that
             # one more agent raises the rate at the witness
-            staff = oracle.base | {axes[0]: wa, axes[1]: wb}
+            staff = oracle.base | dict(zip(axes, witness))
             base, _ = oracle.value_at(staff)
             more, _ = oracle.value_at(staff | {p: staff[p] + 1})
             if more - base > LP_RISE * max(1.0, abs(base)):
                 limiting.append(p)
-        out.append(Piece(const=float(const) + 0.0, coef={axes[0]: float(ca), axes[1]: float(cb)},
-                         coef_all=dict(duals), limiting=tuple(limiting),
-                         witness=(float(wa), float(wb))))
+        out.append(Piece(const=float(piece[0]) + 0.0,
+                         coef={x: float(c) for x, c in zip(axes, piece[1:-1])},
+                         coef_all=dict(duals), limiting=tuple(limiting), witness=witness))
     out.sort(key=lambda p: (len(p.limiting), p.label, p.const))
     return out
 
@@ -517,9 +551,8 @@ def _integer_axis(lo: float, hi: float, count: int) -> list[int]:
 
 
 def _grid_diagram(scenario, axes, of, box, max_grid, common) -> PhaseDiagram:
-    side = max(2, int(math.isqrt(max_grid)))
-    a_vals = _integer_axis(*box[axes[0]], side)
-    b_vals = _integer_axis(*box[axes[1]], side)
+    side = max(2, max_grid if len(axes) == 1 else int(math.isqrt(max_grid)))
+    points = list(itertools.product(*(_integer_axis(*box[p], side) for p in axes)))
     constant = not scenario.has_time_variation
     horizon = None if constant else scenario.run.horizon
     dt = integrate_counters(scenario, horizon=horizon).dt
@@ -529,14 +562,12 @@ def _grid_diagram(scenario, axes, of, box, max_grid, common) -> PhaseDiagram:
         window = (scenario.run.warmup if scenario.run.warmup < end else 0.0, end)
     runs = 0
 
-    def solve(staff, extra=None, grid=None):
+    def solve(point, extra=None, grid=None):
         nonlocal runs
         runs += 1
-        if grid is None:
-            return integrate_counters(scenario, dt=dt, horizon=horizon, staff=staff,
-                                      extra_staff=extra)
-        return integrate_counters(scenario, dt=grid[0], horizon=grid[1], staff=staff,
-                                  extra_staff=extra)
+        step, until = (dt, horizon) if grid is None else grid
+        return integrate_counters(scenario, dt=step, horizon=until,
+                                  staff=dict(zip(axes, point)), extra_staff=extra)
 
     def measures(sol):
         """(rate of ``of`` per time unit, level used to detect a rise)."""
@@ -553,49 +584,44 @@ def _grid_diagram(scenario, axes, of, box, max_grid, common) -> PhaseDiagram:
     # every grid point first, so that a neighbour one agent up can stand in for "one more agent"
     # in an axis pool (same time grid: the difference is then exact, as the counters' own)
     base = {}
-    for a in a_vals:
-        for b in b_vals:
-            sol = solve({axes[0]: a, axes[1]: b})
-            base[(a, b)] = ((sol.dt, sol.horizon), *measures(sol))
+    for pt in points:
+        sol = solve(pt)
+        base[pt] = ((sol.dt, sol.horizon), *measures(sol))
 
-    def rises(a, b, pools) -> bool:
-        grid, _, level = base[(a, b)]
+    def rises(pt, pools) -> bool:
+        grid, _, level = base[pt]
         up = None
         if len(pools) == 1 and pools[0] in axes:
-            up = (a + 1, b) if pools[0] == axes[0] else (a, b + 1)
+            i = axes.index(pools[0])
+            up = pt[:i] + (pt[i] + 1,) + pt[i + 1:]
         if up in base and base[up][0] == grid:
             more = base[up][2]
         else:
-            sol = solve({axes[0]: a, axes[1]: b}, extra={p: 1 for p in pools}, grid=grid)
-            more = measures(sol)[1]
+            more = measures(solve(pt, extra={p: 1 for p in pools}, grid=grid))[1]
         return more - level > COUNTER_RISE * max(1.0, abs(level))
 
-    points = []
-    for a in a_vals:
-        for b in b_vals:
-            rate = base[(a, b)][1]
-            limiting = [p for p in scenario.pools if rises(a, b, (p,))]
-            if not limiting and rate < inflow * (1 - COUNTER_RISE):
-                # no single agent helps, yet the pools hold the rate below the inflow (e.g. front
-                # agents stuck waiting for a supervisor who is not there): pools that limit
-                # together, found by adding one agent to two pools at once
-                for pair in itertools.combinations(scenario.pools, 2):
-                    if rises(a, b, pair):
-                        limiting += [p for p in pair if p not in limiting]
-                limiting = [p for p in scenario.pools if p in limiting]
-            points.append(GridPoint(a=a, b=b, rate=float(rate), limiting=tuple(limiting)))
-    reasons = []
-    if scenario.has_priorities:
-        reasons.append("priorities")
-    if any(s.rate is None for s in scenario.sources.values()):
-        reasons.append("arrival profiles or traces")
-    if any(p.schedule is not None for p in scenario.pools.values()):
-        reasons.append("schedules")
-    if places_without_exit(scenario):
-        reasons.append("jobs that can never end")
+    grid_points = []
+    for pt in points:
+        rate = base[pt][1]
+        limiting = [p for p in scenario.pools if rises(pt, (p,))]
+        if not limiting and rate < inflow * (1 - COUNTER_RISE):
+            # no single agent helps, yet the pools hold the rate below the inflow (e.g. front
+            # agents stuck waiting for a supervisor who is not there): pools that limit
+            # together, found by adding one agent to two pools at once
+            for pair in itertools.combinations(scenario.pools, 2):
+                if rises(pt, pair):
+                    limiting += [p for p in pair if p not in limiting]
+            limiting = [p for p in scenario.pools if p in limiting]
+        grid_points.append(GridPoint(a=pt[0], b=pt[1] if len(pt) > 1 else None,
+                                     rate=float(rate), limiting=tuple(limiting)))
+    reasons = [why for why, holds in (
+        ("priorities", scenario.has_priorities),
+        ("arrival profiles or traces", any(s.rate is None for s in scenario.sources.values())),
+        ("schedules", any(p.schedule is not None for p in scenario.pools.values())),
+        ("jobs that can never end", bool(places_without_exit(scenario)))) if holds]
     notes = [f"the throughput LP does not apply ({', '.join(reasons)}): rates come from the "
-             f"counter equations integrated at {len(points)} integer staff points (time step "
-             f"{dt:g} {scenario.time_unit}); no exact pieces; limiting pools by one-agent "
+             f"counter equations integrated at {len(grid_points)} integer staff points (time "
+             f"step {dt:g} {scenario.time_unit}); no exact pieces; limiting pools by one-agent "
              "differences (two pools at once where no single agent helps)"]
     if window is not None:
         notes.append(f"rates are means over the window [{window[0]:g}, {window[1]:g}] "
@@ -603,6 +629,6 @@ def _grid_diagram(scenario, axes, of, box, max_grid, common) -> PhaseDiagram:
     for p in axes:
         if scenario.pools[p].schedule is not None:
             notes.append(f"the schedule of {p} is replaced by the constant staff of each point")
-    return PhaseDiagram(method="counters-grid", pieces=(), grid=tuple(points),
+    return PhaseDiagram(method="counters-grid", pieces=(), grid=tuple(grid_points),
                         inflow_rate=inflow, lp_solves=runs,
                         max_mismatch=math.nan, exact=False, notes=tuple(notes), **common)

@@ -1,5 +1,5 @@
-"""The simulation-verified staffing search (compare.staffing_search) and the simulated overlay of
-phase diagrams (compare.phase_plot).
+"""The simulation-verified staffing search (compare.staffing_search) and its figure
+(compare.staff_plot), and the simulated overlay of phase diagrams (compare.phase_plot).
 
 References: Erlang C (Erlang 1917; Kleinrock, Queueing Systems I, 1975, M/M/m) and Erlang A
 (Garnett, Mandelbaum and Reiman 2002; Mandelbaum and Zeltyn 2005), as computed by
@@ -21,7 +21,9 @@ from matplotlib.figure import Figure
 
 import desim
 from compare.erlang import erlang_a_queue, erlang_c_queue
-from compare.phase_plot import phase_boundaries, phase_figure, phase_overlay, phase_regions
+from compare.phase_plot import (phase_boundaries, phase_figure, phase_intervals, phase_overlay,
+                                phase_regions)
+from compare.staff_plot import staffing_figure
 from compare.staffing_formulas import erlang_a_min_servers, erlang_c_min_servers
 from compare.staffing_search import ABANDONMENT, staff_search, target_estimates
 from desim import Estimate
@@ -308,3 +310,43 @@ def test_regions_tile_the_drawn_box_and_boundaries_are_ties():
         for pt in seg:  # both pieces equal the rate along their boundary
             for k in (i, j):
                 assert float(d.pieces[k].value(*pt)) == pytest.approx(d.rate_at(*pt), abs=1e-9)
+
+
+def test_one_axis_overlay_intervals_and_figure():
+    # one pool: by hand (references.md, single pool) the fluid rate is min(λ, N/h) = min(1.5, N/2)
+    # with one piece change at N = λh = 3
+    s = load_scenario_text(station(1.5, 2.0, 0.5, 0.7, staff=5))
+    d = phase_diagram(s, ("agents",), ranges={"agents": (1, 7)})
+    (i0, lo0, hi0), (i1, lo1, hi1) = phase_intervals(d)
+    assert (d.pieces[i0].label, d.pieces[i1].label) == ("agents", "inflow")
+    assert (lo0, hi0, lo1, hi1) == pytest.approx((1, 3, 3, 7), abs=1e-12)
+    table = phase_overlay(s, d, reps=4, horizon=400, warmup=40, seed=3, workers=1,
+                          max_points=4)
+    # 1..7 thinned to every other staff level, keeping both ends
+    assert list(table["a"]) == [1, 3, 5, 7] and "b" not in table.columns
+    for row in table.itertuples():
+        assert row.fluid_rate == pytest.approx(min(1.5, row.a / 2), abs=1e-9)
+        assert row.optimistic == (row.fluid_rate > row.sim_high)
+        assert row.n == 4
+    fig = phase_figure(d, overlay=table)
+    assert isinstance(fig, Figure) and len(fig.axes) == 2  # rate, and the target's service level
+    assert len(phase_figure(d).axes) == 1
+    # out of LPs before any test point: not proven exact, but its pieces are still drawn
+    rough = phase_diagram(s, ("agents",), max_solves=1)
+    assert not rough.exact and rough.to_json()["max_mismatch"] is None
+    assert len(phase_figure(rough).axes) == 1
+
+
+def test_staffing_figure_panels():
+    # formulas in place of the simulation (as in test_search_finds_the_erlang_c_minimum): one
+    # panel per target and one of the staff per pool; the fluid plan alone is one panel of bars
+    s = load_scenario_text(station(1.0, 3.0, 0.5, 0.9))
+    result = staff_search(s, evaluator=erlang_c_evaluator(1.0, 3.0, 0.5))
+    fig = staffing_figure(result)
+    assert isinstance(fig, Figure) and len(fig.axes) == 2
+    assert "final plan agents 6" in fig.get_suptitle()  # Erlang C answer of that case
+    only = staff_search(s, fluid_only=True)
+    fig = staffing_figure(only)
+    assert len(fig.axes) == 1
+    heights = sorted(p.get_height() for p in fig.axes[0].patches)
+    assert heights == [1, 3]  # the scenario's 1 agent and the fluid plan ceil(R) = ceil(3) = 3

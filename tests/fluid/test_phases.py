@@ -275,3 +275,106 @@ def test_every_piece_is_an_upper_bound_everywhere():
         rate = d.rate_at(f, b)
         assert all(float(p.value(f, b)) >= rate - EXACT for p in d.pieces)
         assert math.isfinite(rate)
+
+
+# --- one axis ------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("rate, hold, staff", [(2.0, 5.0, 12), (3.0, 2.0, 4), (0.5, 8.0, 1)])
+def test_one_axis_single_pool_is_min_of_inflow_and_capacity(rate, hold, staff):
+    # By hand (references.md, "Throughput LP", closed form for a single pool): N agents each
+    # holding a job for the mean hold h finish at most N/h jobs per time unit (Little's law:
+    # busy agents = rate × h ≤ N), and no more than the λ that arrive can end, so
+    # rate = min(λ, N/h): two pieces, "inflow" (const λ, coef 0) and "agents" (const 0, coef
+    # 1/h), meeting at N = λh. Exact for every real N ≥ 0, not only the drawn range.
+    d = phase_diagram(nets.load(nets.single_pool(rate, staff, hold)), ("agents",))
+    assert d.method == "lp" and d.exact and d.axes == ("agents",)
+    got = {p.label: (p.const, p.coef["agents"]) for p in d.pieces}
+    assert set(got) == {"inflow", "agents"}
+    assert got["inflow"] == pytest.approx((rate, 0.0), abs=EXACT)
+    assert got["agents"] == pytest.approx((0.0, 1 / hold), abs=EXACT)
+    lo, hi = d.box()
+    for n in [*np.linspace(lo, hi, 41), rate * hold, 0.37, 1e3, 1e5]:
+        assert d.rate_at(n) == pytest.approx(min(rate, n / hold), abs=EXACT)
+        if abs(n - rate * hold) > 1e-9:  # at the kink both pieces tie
+            assert d.label_at(n) == ("agents" if n < rate * hold else "inflow")
+    # vectorised evaluation agrees with the scalar one
+    ns = np.linspace(0, 3 * rate * hold, 7)
+    assert d.rate_at(ns) == pytest.approx(np.minimum(rate, ns / hold), abs=EXACT)
+    for p in d.pieces:
+        assert d.piece_at(*p.witness) == d.pieces.index(p)
+
+
+def test_one_axis_labels_a_pool_off_the_axis():
+    # TANDEM with a = 4 (hold 2: cap 4/2 = 2), c = 9 (cap 9/4 = 2.25), λ = 3, b on the axis
+    # (hold 1.5): rate = min(3, 2, b/1.5, 2.25) = min(2, b/1.5). The flat piece is held by pool a
+    # (off the axis, named because one more agent there raises the rate), not by the inflow.
+    d = phase_diagram(nets.load(TANDEM), ["b"])
+    got = {p.label: (p.const, p.coef["b"]) for p in d.pieces}
+    assert got.keys() == {"a", "b"}
+    assert got["a"] == pytest.approx((2.0, 0.0), abs=EXACT)
+    assert got["b"] == pytest.approx((0.0, 1 / 1.5), abs=EXACT)
+    for b in [0, 1, 2.5, 3, 3.5, 10, 1e4]:
+        assert d.rate_at(b) == pytest.approx(min(2.0, b / 1.5), abs=EXACT)
+
+
+def test_one_axis_cold_transfer():
+    # From test_cold_transfer_has_a_piece_limited_by_both_pools with the front desk at its 10
+    # agents: min(4, 3 + B/5, 10/2, 0.375·10 + 0.2 B) = min(4, 3 + B/5)
+    d = phase_diagram(nets.load(nets.cold_transfer()), ("billing_desk",))
+    got = {p.label: (p.const, p.coef["billing_desk"]) for p in d.pieces}
+    assert got == {"inflow": pytest.approx((4.0, 0.0), abs=EXACT),
+                   "billing_desk": pytest.approx((3.0, 0.2), abs=EXACT)}
+    for b in np.linspace(0, 12, 25):
+        assert d.rate_at(b) == pytest.approx(min(4.0, 3 + b / 5), abs=EXACT)
+
+
+def test_one_axis_json_document():
+    # same shape as with two axes: {"of", "axes": [pool], "pieces": [{"const", "coef": {pool: x},
+    # "limiting": [...]}], ...}; the JSON alone gives the rate min(λ, N/h) = min(2, N/5)
+    d = phase_diagram(nets.load(nets.single_pool(2.0, 12, 5.0)), "agents",
+                      ranges={"agents": (4, 20)})
+    doc = json.loads(json.dumps(d.to_json(), allow_nan=False))
+    assert {"of", "axes", "pieces", "method", "ranges", "notes", "staff"} <= set(doc)
+    assert doc["axes"] == ["agents"] and doc["of"] == ["close"] and doc["method"] == "lp"
+    assert doc["ranges"] == {"agents": [4, 20]}
+    for piece in doc["pieces"]:
+        assert {"const", "coef", "limiting", "label"} <= set(piece)
+        assert set(piece["coef"]) == {"agents"} and len(piece["witness"]) == 1
+    assert sorted(p["label"] for p in doc["pieces"]) == ["agents", "inflow"]
+    assert next(p for p in doc["pieces"] if p["label"] == "inflow")["limiting"] == []
+    for n in [0, 3, 9.5, 10, 17, 400]:
+        value = min(p["const"] + p["coef"]["agents"] * n for p in doc["pieces"])
+        assert value == pytest.approx(min(2.0, n / 5), abs=EXACT)
+    assert list(d.to_frame().columns) == ["piece", "const", "coef_agents", "label"]
+
+
+def test_one_axis_counters_grid():
+    # overflow net (priority at the queue, so the counters grid): by hand as in
+    # test_counters_grid_with_a_priority_at_the_queue, with the overflow desk at its 4 agents:
+    # total = min(2.5, (own + 4)/2). At own = 0 the rate 2 is below λ and one more agent in
+    # either desk raises it (both limit); from own = 1 on the inflow limits.
+    s = nets.load(nets.overflow())
+    d = phase_diagram(s, ("own_desk",), ranges={"own_desk": (0, 5)})
+    assert d.method == "counters-grid" and not d.pieces
+    assert [g.a for g in d.grid] == [0, 1, 2, 3, 4, 5] and all(g.b is None for g in d.grid)
+    for g in d.grid:
+        assert g.rate == pytest.approx(min(2.5, (g.a + 4) / 2), rel=1e-6, abs=1e-9)
+        assert g.label == ("own_desk+overflow_desk" if g.a < 1 else "inflow"), g
+    # linear interpolation between grid points, exact on them
+    assert d.rate_at(0.5) == pytest.approx((d.grid[0].rate + d.grid[1].rate) / 2, rel=1e-12)
+    doc = json.loads(json.dumps(d.to_json(), allow_nan=False))
+    assert doc["axes"] == ["own_desk"] and doc["pieces"] == []
+    assert all("b" not in g for g in doc["grid"]) and len(doc["grid"]) == 6
+    assert list(d.to_frame().columns) == ["own_desk", "rate", "label"]
+
+
+def test_refuses_three_axes():
+    s = nets.load(nets.cold_transfer())
+    with pytest.raises(ValueError, match="one pool or two different pools"):
+        phase_diagram(s, ("front_desk", "billing_desk", "front_desk"))
+    with pytest.raises(ValueError, match="one pool or two different pools"):
+        phase_diagram(s, ())
+    d = phase_diagram(s, ("billing_desk",))
+    with pytest.raises(TypeError, match="1 axis pool"):
+        d.rate_at(1.0, 2.0)
