@@ -13,7 +13,7 @@ import os
 import sys
 import traceback
 import warnings
-from typing import Any, Callable, Sequence
+from typing import Any, Sequence
 
 from desim import DaskError, StoreError
 from fluid.errors import ScenarioError

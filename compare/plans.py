@@ -54,7 +54,8 @@ def _parse_costs(items, scenario) -> dict[str, float] | None:
 def phases(args) -> Outcome:
     from fluid.phases import phase_diagram
 
-    from .phase_plot import phase_figure, phase_overlay
+    from .phase_overlay import phase_overlay
+    from .phase_plot import phase_figure
 
     s = _load(args)
     if len(args.axes) not in (1, 2):

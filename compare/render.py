@@ -124,7 +124,7 @@ def fluid_text(s: Scenario, r) -> str:
     if getattr(r, "rounding", 0):
         head += f"; hold times rounded to the grid by at most {fmt(100 * r.rounding, 3)} %"
     rows = [[t, fmt(rate), "yes" if s.ends_job(t) else ""] for t, rate in r.rates.items()]
-    parts = [head, format_table([f"transition", f"rate per {unit}", "ends job"], rows)]
+    parts = [head, format_table(["transition", f"rate per {unit}", "ends job"], rows)]
     pool_rows = []
     for name in s.pools:
         load = r.load.get(name)

@@ -46,7 +46,6 @@ import pandas as pd
 from scipy.optimize import linprog
 
 from .analysis import offered_rates
-from .counters import integrate_counters
 from .lp import places_without_exit, throughput_lp
 from .scenario import Scenario
 from .staffing import offered_work
@@ -318,7 +317,9 @@ def phase_diagram(
                 and not places_without_exit(scenario))
     if lp_holds:
         return _lp_diagram(scenario, axes, of, work, max_solves, common)
-    return _grid_diagram(scenario, axes, of, box, max_grid, common)
+    from .phase_grid import grid_diagram  # (it builds on this module's result types)
+
+    return grid_diagram(scenario, axes, of, box, max_grid, common)
 
 
 # --- the LP method -------------------------------------------------------------------------------
@@ -537,98 +538,3 @@ def _labelled(oracle: _Oracle, axes, found: list) -> list[Piece]:
 
 
 # --- the counters grid ---------------------------------------------------------------------------
-
-
-def _integer_axis(lo: float, hi: float, count: int) -> list[int]:
-    start, stop = math.ceil(lo), math.floor(hi)
-    if stop < start:
-        raise ValueError(f"the range {lo:g}:{hi:g} holds no whole staff level")
-    step = max(1, math.ceil((stop - start) / max(count - 1, 1)))
-    vals = list(range(start, stop + 1, step))
-    if vals[-1] != stop:
-        vals.append(stop)
-    return vals
-
-
-def _grid_diagram(scenario, axes, of, box, max_grid, common) -> PhaseDiagram:
-    side = max(2, max_grid if len(axes) == 1 else int(math.isqrt(max_grid)))
-    points = list(itertools.product(*(_integer_axis(*box[p], side) for p in axes)))
-    constant = not scenario.has_time_variation
-    horizon = None if constant else scenario.run.horizon
-    dt = integrate_counters(scenario, horizon=horizon).dt
-    window = None
-    if not constant:
-        end = scenario.run.horizon
-        window = (scenario.run.warmup if scenario.run.warmup < end else 0.0, end)
-    runs = 0
-
-    def solve(point, extra=None, grid=None):
-        nonlocal runs
-        runs += 1
-        step, until = (dt, horizon) if grid is None else grid
-        return integrate_counters(scenario, dt=step, horizon=until,
-                                  staff=dict(zip(axes, point)), extra_staff=extra)
-
-    def measures(sol):
-        """(rate of ``of`` per time unit, level used to detect a rise)."""
-        if window is None:
-            r = sum(sol.rates[q] for q in of)
-            return r, r
-        r = sum(sol.rates_between(*window)[q] for q in of)
-        i, j = (int(round(t / sol.dt)) for t in window)
-        return r, float(sum(sol.counters[q][i: j + 1].mean() for q in of))
-
-    rates, _ = offered_rates(scenario)
-    inflow = float(sum(rates[q] for q in of))
-
-    # every grid point first, so that a neighbour one agent up can stand in for "one more agent"
-    # in an axis pool (same time grid: the difference is then exact, as the counters' own)
-    base = {}
-    for pt in points:
-        sol = solve(pt)
-        base[pt] = ((sol.dt, sol.horizon), *measures(sol))
-
-    def rises(pt, pools) -> bool:
-        grid, _, level = base[pt]
-        up = None
-        if len(pools) == 1 and pools[0] in axes:
-            i = axes.index(pools[0])
-            up = pt[:i] + (pt[i] + 1,) + pt[i + 1:]
-        if up in base and base[up][0] == grid:
-            more = base[up][2]
-        else:
-            more = measures(solve(pt, extra={p: 1 for p in pools}, grid=grid))[1]
-        return more - level > COUNTER_RISE * max(1.0, abs(level))
-
-    grid_points = []
-    for pt in points:
-        rate = base[pt][1]
-        limiting = [p for p in scenario.pools if rises(pt, (p,))]
-        if not limiting and rate < inflow * (1 - COUNTER_RISE):
-            # no single agent helps, yet the pools hold the rate below the inflow (e.g. front
-            # agents stuck waiting for a supervisor who is not there): pools that limit
-            # together, found by adding one agent to two pools at once
-            for pair in itertools.combinations(scenario.pools, 2):
-                if rises(pt, pair):
-                    limiting += [p for p in pair if p not in limiting]
-            limiting = [p for p in scenario.pools if p in limiting]
-        grid_points.append(GridPoint(a=pt[0], b=pt[1] if len(pt) > 1 else None,
-                                     rate=float(rate), limiting=tuple(limiting)))
-    reasons = [why for why, holds in (
-        ("priorities", scenario.has_priorities),
-        ("arrival profiles or traces", any(s.rate is None for s in scenario.sources.values())),
-        ("schedules", any(p.schedule is not None for p in scenario.pools.values())),
-        ("jobs that can never end", bool(places_without_exit(scenario)))) if holds]
-    notes = [f"the throughput LP does not apply ({', '.join(reasons)}): rates come from the "
-             f"counter equations integrated at {len(grid_points)} integer staff points (time "
-             f"step {dt:g} {scenario.time_unit}); no exact pieces; limiting pools by one-agent "
-             "differences (two pools at once where no single agent helps)"]
-    if window is not None:
-        notes.append(f"rates are means over the window [{window[0]:g}, {window[1]:g}] "
-                     f"{scenario.time_unit}")
-    for p in axes:
-        if scenario.pools[p].schedule is not None:
-            notes.append(f"the schedule of {p} is replaced by the constant staff of each point")
-    return PhaseDiagram(method="counters-grid", pieces=(), grid=tuple(grid_points),
-                        inflow_rate=inflow, lp_solves=runs,
-                        max_mismatch=math.nan, exact=False, notes=tuple(notes), **common)

@@ -21,8 +21,8 @@ from matplotlib.figure import Figure
 
 import desim
 from compare.erlang import erlang_a_queue, erlang_c_queue
-from compare.phase_plot import (phase_boundaries, phase_figure, phase_intervals, phase_overlay,
-                                phase_regions)
+from compare.phase_overlay import phase_overlay
+from compare.phase_plot import phase_boundaries, phase_figure, phase_intervals, phase_regions
 from compare.staff_plot import staffing_figure
 from compare.staffing_formulas import erlang_a_min_servers, erlang_c_min_servers
 from compare.staffing_search import ABANDONMENT, staff_search, target_estimates
