@@ -398,6 +398,11 @@ class Engine:
         fifo.at_once += 1
         if place.waits_taken is not None and now >= self.warmup:
             place.waits_taken.append(0.0)
+        return self._move(t, job, now)
+
+    def _move(self, t, job: Job, now: float) -> int:
+        """The rest of a firing of ``t`` once ``job`` has left its place: agents taken and given
+        back, the job into the output place or ended. Returns the bits of what may be enabled."""
         for pool, k in t.takes:
             pool.area_avail += pool.avail * (now - pool.last)
             pool.last = now
@@ -559,21 +564,8 @@ class Engine:
             place.within_q += 1
         if place.waits_taken is not None and now >= self.warmup:
             place.waits_taken.append(w)
-        for pool, k in t.takes:
-            pool.area_avail += pool.avail * (now - pool.last)
-            pool.last = now
-            pool.avail -= k
         t.fired += 1
-        if self.trace is not None:
-            self.trace.append((now, "fire", t.name, job.id))
-        bits = 0
-        for pool, k in t.gives:
-            bits |= pool.give(k, now)
-        if t.out_place is not None:
-            bits |= self._enter(t.out_place, job, now)
-        else:
-            self._end(job, now, True, t.name)
-        return bits
+        return self._move(t, job, now)
 
     # --- bookkeeping -----------------------------------------------------------------------------
 
