@@ -16,6 +16,7 @@ from .estimate import Estimate
 from .replicate import replicate, run_replications
 from .results import SimulationResult, WarmupSuggestion
 from .run import DEFAULT_MAX_JOBS, RunResult, run_replication, waiting_places
+from .settings import SettingsError, SimulationSettings, resolve_settings
 from .store import RunStore, StoreError
 from .streams import stable_hash, stream_rng
 from .warmup import MserResult, mser5
@@ -29,13 +30,16 @@ __all__ = [
     "MserResult",
     "RunResult",
     "RunStore",
+    "SettingsError",
     "SimulationError",
+    "SimulationSettings",
     "SimulationResult",
     "StoreError",
     "WarmupSuggestion",
     "dask_executor",
     "mser5",
     "replicate",
+    "resolve_settings",
     "run_replication",
     "run_replications",
     "stable_hash",

@@ -17,7 +17,8 @@ from typing import Callable
 from fluid.scenario import Scenario
 
 from .results import SimulationResult, summarize
-from .run import RunResult, check_settings, run_replication
+from .run import RunResult, run_replication
+from .settings import SimulationSettings, resolve_settings
 from .store import RunStore
 
 __all__ = ["replicate", "run_replications"]
@@ -84,11 +85,14 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
               interval: float | None = None, max_jobs: int | None = None,
               progress: Callable[[], object] | None = None,
               record_waits: bool = False, out: str | os.PathLike | None = None,
-              resume: bool = False) -> SimulationResult:
+              resume: bool = False,
+              settings: SimulationSettings | None = None) -> SimulationResult:
     """Simulate ``reps`` independent replications of ``scenario`` over [0, horizon], measure each
     over [warmup, horizon] and return estimates with 95 % Student t intervals.
 
-    Times are in the scenario's time unit; any setting left None comes from ``scenario.run``.
+    Times are in the scenario's time unit. ``settings``: a :class:`desim.SimulationSettings`
+    (see :func:`desim.resolve_settings`); each keyword given wins over it, and anything left
+    unset comes from ``scenario.run``.
     ``executor``/``workers``: where replications run (see :func:`run_replications`); the numbers
     do not depend on it. ``interval``: also build per-interval tables of that length (from 0).
     ``max_jobs``: jobs allowed inside a run at once before it is stopped and reported unstable
@@ -100,30 +104,25 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
     it finishes, and the combined result as ``summary.json`` at the end. Without ``resume`` it
     must be new or empty. ``resume``: reuse the replications already saved in ``out`` (same
     scenario and settings, else :class:`desim.store.StoreError`) and run only the missing ones;
-    the numbers are identical to an uninterrupted run.
+    the numbers are identical to an uninterrupted run. Bad settings raise
+    :class:`desim.SettingsError` (a ValueError) naming the setting.
     """
-    run = scenario.run
-    reps = run.replications if reps is None else int(reps)
-    if reps < 1:
-        raise ValueError(f"reps must be at least 1 (got {reps!r})")
-    settings = dict(
-        horizon=float(run.horizon if horizon is None else horizon),
-        warmup=float(run.warmup if warmup is None else warmup),
-        seed=int(run.seed if seed is None else seed),
-        interval=interval, max_jobs=max_jobs, record_waits=record_waits,
-    )
-    check_settings(settings["horizon"], settings["warmup"], interval, max_jobs)
-    if resume and out is None:
-        raise ValueError("resume needs the run directory (out) to resume from")
-    store = None if out is None else RunStore.open(Path(out), scenario, settings, resume=resume)
+    cfg = resolve_settings(scenario.run, settings, reps=reps, horizon=horizon, warmup=warmup,
+                           seed=seed, executor=executor, workers=workers, interval=interval,
+                           max_jobs=max_jobs, out=out, resume=resume or None)
+    reps = cfg.replications
+    run_settings = dict(horizon=cfg.horizon, warmup=cfg.warmup, seed=cfg.seed,
+                        interval=cfg.interval, max_jobs=cfg.max_jobs, record_waits=record_waits)
+    store = (None if cfg.out is None
+             else RunStore.open(Path(cfg.out), scenario, run_settings, resume=cfg.resume))
     saved = {} if store is None else store.load_all(range(reps))
     if progress is not None:
         for _ in saved:
             progress()
     todo = [r for r in range(reps) if r not in saved]
-    runs = run_replications(scenario, todo, executor=executor, workers=workers,
+    runs = run_replications(scenario, todo, executor=cfg.executor, workers=cfg.workers,
                             progress=progress, on_result=None if store is None else store.save,
-                            **settings) if todo else []
+                            **run_settings) if todo else []
     runs = sorted([*saved.values(), *runs], key=lambda r: r.replication)
     result = summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
                        steady_state=not scenario.has_time_variation)

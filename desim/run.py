@@ -97,15 +97,12 @@ class RunResult:
 
 def check_settings(horizon: float, warmup: float, interval: float | None = None,
                    max_jobs: int | None = None) -> None:
-    """Raise ValueError for settings no run can use."""
-    if not (isinstance(horizon, (int, float)) and math.isfinite(horizon) and horizon > 0):
-        raise ValueError(f"horizon must be a positive number (got {horizon!r})")
-    if not (isinstance(warmup, (int, float)) and 0 <= warmup < horizon):
-        raise ValueError(f"warmup must be >= 0 and below the horizon {horizon:g} (got {warmup!r})")
-    if interval is not None and not (math.isfinite(interval) and interval > 0):
-        raise ValueError(f"interval must be a positive number (got {interval!r})")
-    if max_jobs is not None and max_jobs < 1:
-        raise ValueError(f"max_jobs must be at least 1 (got {max_jobs!r})")
+    """Raise :class:`desim.SettingsError` (a ValueError) for settings no run can use (the
+    checks of :func:`desim.resolve_settings`)."""
+    from .settings import SimulationSettings
+
+    SimulationSettings(replications=1, horizon=horizon, warmup=warmup, seed=0,
+                       interval=interval, max_jobs=max_jobs).with_changes()
 
 
 def waiting_places(scenario: Scenario) -> tuple[str, ...]:

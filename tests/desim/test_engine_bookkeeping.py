@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from compare.erlang import erlang_c_queue
+from compare.formulas.erlang import erlang_c_queue
 from desim import replicate, run_replication
 from desim.engine import STALE_TIMER_SLACK, Engine, PatienceTimer
 from desim.net import build_net

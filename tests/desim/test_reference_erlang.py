@@ -2,7 +2,7 @@
 
 Every check runs a station written as a scenario (design.md §3) through :func:`desim.replicate`
 with a fixed seed and compares a simulated figure with its formula (references.md; computed by
-``compare.erlang``, itself tested against published and recomputed values in tests/compare).
+``compare.formulas.erlang``, itself tested against published and recomputed values in tests/compare).
 
 How the tolerance is derived (the same rule in test_reference_priority.py and test_configs.py):
 the reference must lie in a two-sided Student t interval for the mean of the per-replication
@@ -30,7 +30,7 @@ import pytest
 from scipy import stats
 
 import desim
-from compare.erlang import erlang_a_queue, erlang_b_loss, erlang_c_queue
+from compare.formulas.erlang import erlang_a_queue, erlang_b_loss, erlang_c_queue
 from fluid.loading import load_scenario_text
 
 #: Interval checks in the reference family (see the module docstring); per-check level below.

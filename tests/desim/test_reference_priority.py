@@ -13,8 +13,8 @@ import textwrap
 import numpy as np
 import pytest
 
-from compare.erlang import erlang_c_queue
-from compare.priority import cobham_waits
+from compare.formulas.erlang import erlang_c_queue
+from compare.formulas.priority import cobham_waits
 from fluid.loading import load_scenario_text
 
 from .test_reference_erlang import agrees, simulate

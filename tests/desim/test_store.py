@@ -212,7 +212,7 @@ def test_resume_refuses_a_run_of_another_version(net, tmp_path, monkeypatch):
 
 
 def test_resume_needs_a_directory(net):
-    with pytest.raises(ValueError, match="resume needs the run directory"):
+    with pytest.raises(ValueError, match="resume needs --out DIR, the run directory"):
         replicate(net(DESK), reps=2, horizon=100, workers=1, resume=True)
 
 

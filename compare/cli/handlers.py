@@ -1,0 +1,208 @@
+"""One handler per subcommand: load the scenario, call the library, shape text and JSON.
+
+Each handler takes the parsed arguments and returns an :class:`~compare.cli.outcome.Outcome`
+through :func:`~compare.cli.outcome.finish`; printing is left to :mod:`compare.cli.main`.
+Heavy modules (the studies, pandas, matplotlib) are imported inside the handler that needs them,
+so ``fluidgap --help`` and ``fluidgap inspect`` start fast.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+
+from ..present import text as render
+from ..present.text import CAUTION
+from .outcome import InputError, Outcome, finish
+from .run_options import load, settings_from_flags, simulation
+
+__all__ = ["inspect", "fluid", "simulate", "compare", "station", "scale", "phases", "staff"]
+
+
+def inspect(args) -> Outcome:
+    from fluid.invariants import p_semiflows, uncovered_pools
+
+    s = load(args)
+    invariants = p_semiflows(s)
+    uncovered = uncovered_pools(s)
+    return Outcome(text=render.inspect_text(s, invariants, uncovered),
+                   json=render.inspect_json(s, invariants, uncovered))
+
+
+def fluid(args) -> Outcome:
+    from fluid.analysis import throughput
+
+    s = load(args)
+    if args.dt is not None and args.dt <= 0:
+        raise InputError(f"fluidgap fluid: --dt must be > 0 (got {args.dt:g})")
+    result = throughput(s, method=args.method, dt=args.dt)
+    return finish(args, render.fluid_text(s, result), result.to_dict())
+
+
+def simulate(args) -> Outcome:
+    from desim import replicate
+
+    s = load(args)
+    with simulation(args, s.run) as (settings, progress):
+        result = replicate(s, settings=settings, progress=progress)
+    return finish(args, render.simulation_text(s, result), result.to_json())
+
+
+def compare(args) -> Outcome:
+    from ..present.reports import comparison_report
+    from ..study.comparison import compare as run_comparison
+
+    s = load(args)
+    with simulation(args, s.run) as (settings, progress):
+        result = run_comparison(s, settings, progress=progress,
+                                record_waits=args.report is not None)
+    return finish(args, render.comparison_text(s, result), result.to_json(),
+                  report=lambda d: comparison_report(
+                      d, result, s, caution=CAUTION, summary=render.comparison_summary(s, result)))
+
+
+def station(args) -> Outcome:
+    from fluid.loading import parse_override
+
+    from ..present.reports import station_report
+    from ..study.station import station_check, station_run
+
+    cmd = "fluidgap station"
+    if args.servers < 1:
+        raise InputError(f"{cmd}: --servers must be >= 1 (got {args.servers})")
+    for flag, value in (("--rate", args.rate), ("--mean-hold", args.mean_hold)):
+        if not value > 0:
+            raise InputError(f"{cmd}: {flag} must be > 0 (got {value:g})")
+    if args.patience_mean is not None and args.patience_mean < 0:
+        raise InputError(f"{cmd}: --patience-mean must be >= 0 (got {args.patience_mean:g})")
+    if args.hold_cv < 0:
+        raise InputError(f"{cmd}: --hold-cv must be >= 0 (got {args.hold_cv:g})")
+    if args.within is not None and args.within < 0:
+        raise InputError(f"{cmd}: --within must be >= 0 (got {args.within:g})")
+    if args.reps is not None and args.reps < 2:
+        raise InputError(f"{cmd}: --reps must be >= 2 for an interval (got {args.reps})")
+    if args.class_rates and any(not r > 0 for r in args.class_rates):
+        raise InputError(f"{cmd}: every --class-rates value must be > 0")
+    # --set changes the simulated station only (the formulas keep the flags' values): a way to
+    # see that the checks do fail when the simulation is fed something else
+    overrides = dict(parse_override(o) for o in args.overrides) or None
+    try:
+        with simulation(args, station_run(args.rate, args.horizon)) as (settings, progress):
+            result = station_check(
+                args.servers, args.rate, args.mean_hold, patience_mean=args.patience_mean,
+                hold_cv=args.hold_cv, class_rates=args.class_rates, within=args.within,
+                settings=settings, progress=progress, _simulate_overrides=overrides)
+    except ValueError as exc:
+        if isinstance(exc, InputError):
+            raise
+        raise InputError(f"{cmd}: {exc}") from None
+    return finish(args, render.station_text(result), result.to_json(),
+                  report=lambda d: station_report(d, result, caution=CAUTION,
+                                                  summary=render.station_summary(result)))
+
+
+def scale(args) -> Outcome:
+    from ..present.reports import scale_report
+    from ..study.scale import scale_study
+
+    s = load(args)
+    if not args.factors or any(not k > 0 for k in args.factors):
+        raise InputError("fluidgap scale: --factors must be positive numbers")
+    with simulation(args, s.run, runs_per_replication=len(args.factors)) as (settings, progress):
+        result = scale_study(s, args.factors, settings, progress=progress)
+    return finish(args, render.scale_text(result), result.to_json(),
+                  report=lambda d: scale_report(d, result, caution=CAUTION,
+                                                summary=render.scale_summary(result)))
+
+
+def _parse_ranges(items, scenario) -> dict[str, tuple[float, float]]:
+    out = {}
+    for item in items or []:
+        name, sep, span = item.partition("=")
+        lo, sep2, hi = span.partition(":")
+        try:
+            lo_f, hi_f = float(lo), float(hi)
+        except ValueError:
+            raise InputError(f"fluidgap phases: --range expects POOL=LO:HI (got {item!r})") from None
+        if not (sep and sep2) or name not in scenario.pools:
+            raise InputError(f"fluidgap phases: --range expects POOL=LO:HI with a pool of the "
+                             f"scenario (got {item!r})")
+        if not 0 <= lo_f < hi_f:
+            raise InputError(f"fluidgap phases: --range {name}: need 0 <= LO < HI (got {span})")
+        out[name] = (lo_f, hi_f)
+    return out
+
+
+def _parse_costs(items, scenario) -> dict[str, float] | None:
+    if not items:
+        return None
+    out = {}
+    for item in items:
+        name, sep, value = item.partition("=")
+        try:
+            cost = float(value)
+        except ValueError:
+            cost = math.nan
+        if not sep or name not in scenario.pools or not cost >= 0:
+            raise InputError("fluidgap staff: --cost expects POOL=C with a pool of the scenario "
+                             f"and a cost >= 0 (got {item!r})")
+        out[name] = cost
+    return out
+
+
+def phases(args) -> Outcome:
+    from fluid.phases import phase_diagram
+
+    from ..present.phase_figure import phase_figure
+    from ..present.plan_text import phases_text
+    from ..present.reports import phases_report
+    from ..study.phase_overlay import phase_overlay
+
+    s = load(args)
+    if len(args.axes) not in (1, 2):
+        raise InputError(f"fluidgap phases: --axes takes one or two pools (got {len(args.axes)})")
+    for pool in args.axes:
+        if pool not in s.pools:
+            raise InputError(f"fluidgap phases: --axes names {pool!r}, not a pool of the "
+                             f"scenario (pools: {', '.join(s.pools)})")
+    if len(set(args.axes)) != len(args.axes):
+        raise InputError("fluidgap phases: --axes needs two different pools")
+    if args.of is not None and args.of not in s.transitions:
+        raise InputError(f"fluidgap phases: --of {args.of!r} is not a transition of the scenario")
+    ranges = _parse_ranges(args.range, s)
+    if args.simulate:
+        settings_from_flags(args, s.run)  # bad flags stop before the diagram is drawn
+    diagram = phase_diagram(s, tuple(args.axes), of=args.of, ranges=ranges or None)
+    overlay = None
+    if args.simulate:
+        with simulation(args, s.run, runs_per_replication=49) as (settings, progress):
+            overlay = phase_overlay(s, diagram, settings, progress=progress)
+    doc = diagram.to_json()
+    if overlay is not None:
+        doc["overlay"] = overlay.to_dict("records")
+    text = phases_text(diagram, overlay)
+    figure = functools.cache(lambda: phase_figure(diagram, overlay=overlay))
+    return finish(args, text, doc, figure=figure,
+                  report=lambda d: phases_report(d, diagram, overlay, figure(), json_doc=doc,
+                                                 caution=CAUTION, summary=text.split("\n")[:3],
+                                                 title=f"fluidgap phases: {s.name}"))
+
+
+def staff(args) -> Outcome:
+    from ..present.plan_text import staff_summary, staff_text
+    from ..present.reports import staffing_report
+    from ..present.staffing_figure import staffing_figure
+    from ..study.staffing_search import staff_search
+
+    s = load(args)
+    costs = _parse_costs(args.cost, s)
+    with simulation(args, s.run, runs_per_replication=10,
+                    quiet=args.fluid_only) as (settings, progress):
+        result = staff_search(s, settings, costs=costs, progress=progress,
+                              fluid_only=args.fluid_only)
+    doc = result.to_json()
+    figure = functools.cache(lambda: staffing_figure(result))
+    return finish(args, staff_text(s, result), doc, figure=figure,
+                  report=lambda d: staffing_report(d, result, figure(), json_doc=doc,
+                                                   caution=CAUTION, summary=staff_summary(result),
+                                                   title=f"fluidgap staff: {s.name}"))

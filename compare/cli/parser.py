@@ -1,0 +1,142 @@
+"""The ``fluidgap`` argument parser: subcommands and their flags."""
+
+from __future__ import annotations
+
+import argparse
+
+from . import handlers
+
+__all__ = ["UsageError", "build_parser"]
+
+
+class UsageError(Exception):
+    """Bad command-line usage: reported in one line, exit code 2."""
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # one clear line instead of usage + error
+        raise UsageError(f"{self.prog}: {message} (see {self.prog} --help)")
+
+
+def _common(p: argparse.ArgumentParser, *, scenario: str = "required") -> None:
+    if scenario == "required":
+        p.add_argument("scenario", help="scenario YAML file")
+    elif scenario == "optional":
+        p.add_argument("scenario", nargs="?", help="scenario YAML file (default: the built-in demo)")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="PATH=VALUE",
+                   help="change a field before validation, e.g. pools.front_desk=12 (repeatable)")
+    p.add_argument("--json", action="store_true", help="print one JSON document instead of tables")
+
+
+def _simulation_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--reps", type=int, help="replications (default: the scenario's run.replications)")
+    p.add_argument("--horizon", type=float, help="simulated time per replication, scenario time unit")
+    p.add_argument("--warmup", type=float, help="time discarded at the start of each replication")
+    p.add_argument("--seed", type=int, help="base seed (default: the scenario's run.seed)")
+    p.add_argument("--workers", type=int, default=None,
+                   help="worker processes (default: the number of cores; 1 = in this process)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--max-jobs", type=int, default=None, dest="max_jobs",
+                   help="jobs inside the net at which a replication is stopped as unstable")
+    p.add_argument("--dask", metavar="ADDRESS",
+                   help="run replications on a Dask cluster at ADDRESS, or 'local' to start one "
+                   "on this machine (127.0.0.1); needs the dask extra")
+    p.add_argument("--out", metavar="DIR",
+                   help="save each finished replication in DIR as it completes (crash-safe)")
+    p.add_argument("--resume", action="store_true",
+                   help="continue the interrupted run saved in --out DIR")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="fluidgap",
+        description="Fluid models of timed Petri nets set against stochastic simulation.",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    p = sub.add_parser("inspect", help="validate a scenario and summarise its net")
+    _common(p)
+    p.set_defaults(handler=handlers.inspect)
+
+    p = sub.add_parser("fluid", help="fluid throughput, bottlenecks and loads")
+    _common(p)
+    p.add_argument("--method", choices=["auto", "lp", "counters"], default="auto",
+                   help="lp: the throughput LP (no priorities, constant rates); counters: "
+                   "integrate the counter equations (default: auto)")
+    p.add_argument("--dt", type=float, help="time step of the counter integration")
+    p.set_defaults(handler=handlers.fluid)
+
+    p = sub.add_parser("simulate", help="stochastic simulation with confidence intervals")
+    _common(p)
+    _simulation_options(p)
+    p.add_argument("--interval", type=float, metavar="STEP",
+                   help="also tabulate arrivals, served, abandoned, service level and queue per "
+                   "interval of this length")
+    p.set_defaults(handler=handlers.simulate)
+
+    p = sub.add_parser("compare", help="the main job: fluid against simulation, gaps and flags")
+    _common(p, scenario="optional")
+    _simulation_options(p)
+    p.add_argument("--interval", type=float, metavar="STEP",
+                   help="per-interval comparison step (default for profiles and schedules: their step)")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    p.set_defaults(handler=handlers.compare)
+
+    p = sub.add_parser("station", help="single-station self-check against Erlang B/C/A, Cobham, Whitt")
+    p.add_argument("--servers", type=int, required=True, metavar="C", help="agents")
+    p.add_argument("--rate", type=float, required=True, metavar="L",
+                   help="arrival rate per time unit (the total over classes)")
+    p.add_argument("--mean-hold", type=float, required=True, metavar="H", dest="mean_hold",
+                   help="mean holding time")
+    p.add_argument("--patience-mean", type=float, metavar="P", dest="patience_mean",
+                   help="mean of exponential patience (0 = a loss system; none = callers wait)")
+    p.add_argument("--hold-cv", type=float, default=1.0, dest="hold_cv",
+                   help="coefficient of variation of the hold (1 = exponential; else lognormal)")
+    p.add_argument("--class-rates", type=float, nargs="+", metavar="L", dest="class_rates",
+                   help="priority classes, highest first (their sum must equal --rate)")
+    p.add_argument("--within", type=float, help="service-level threshold (default: mean hold / 10)")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    p.add_argument("--json", action="store_true", help="print one JSON document instead of tables")
+    p.add_argument("--set", dest="overrides", action="append", default=[], metavar="PATH=VALUE",
+                   help="change the simulated station only (e.g. sources.calls.rate=1.2), to see "
+                   "the checks fail when the simulation differs from the formulas")
+    _simulation_options(p)
+    p.set_defaults(handler=handlers.station)
+
+    p = sub.add_parser("scale", help="fluid-limit study: the gap as volume and staff grow together")
+    _common(p)
+    _simulation_options(p)
+    p.add_argument("--factors", type=float, nargs="+", default=[1, 2, 4, 8, 16], metavar="K",
+                   help="scale factors for arrival rates and staff (default: 1 2 4 8 16)")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    p.set_defaults(handler=handlers.scale)
+
+    p = sub.add_parser("phases", help="exact fluid phase diagram over the staff of one or two "
+                       "pools")
+    _common(p)
+    p.add_argument("--axes", nargs="+", required=True, metavar="POOL",
+                   help="one pool (the rate against its staff) or two pools (the diagram over "
+                   "their staff)")
+    p.add_argument("--of", metavar="TRANSITION",
+                   help="the rate drawn (default: the total rate of transitions that end jobs)")
+    p.add_argument("--range", action="append", metavar="POOL=LO:HI",
+                   help="staff range drawn for an axis (repeatable)")
+    p.add_argument("--simulate", action="store_true",
+                   help="overlay simulated gaps at integer staff points (common random numbers)")
+    p.add_argument("--png", metavar="FILE", help="write the diagram as a PNG file")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    _simulation_options(p)
+    p.set_defaults(handler=handlers.phases)
+
+    p = sub.add_parser("staff", help="cheapest staffing meeting the targets, fluid then simulated")
+    _common(p)
+    p.add_argument("--cost", action="append", metavar="POOL=C",
+                   help="cost per agent of a pool (default 1; repeatable)")
+    p.add_argument("--fluid-only", action="store_true", dest="fluid_only",
+                   help="stop at the fluid plan (no simulation)")
+    p.add_argument("--png", metavar="FILE", help="write the figure of the plans as a PNG file")
+    p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    _simulation_options(p)
+    p.set_defaults(handler=handlers.staff)
+    return parser

@@ -1,0 +1,85 @@
+"""Simulation settings from the command line, the executor asked for, and the progress bar."""
+
+from __future__ import annotations
+
+import sys
+from contextlib import contextmanager
+from typing import Any
+
+from fluid import load_scenario
+from desim.settings import SimulationSettings
+from fluid.scenario import Scenario
+
+from ..study.demo import demo_path
+from .outcome import InputError
+
+__all__ = ["load", "settings_from_flags", "simulation", "executor", "Progress"]
+
+
+def load(args) -> Scenario:
+    """The scenario named on the command line (the built-in demo when none), with ``--set``."""
+    path = getattr(args, "scenario", None) or demo_path()
+    return load_scenario(path, overrides=args.overrides)
+
+
+def settings_from_flags(args, run) -> SimulationSettings:
+    """The simulation flags over the defaults in ``run`` (a scenario's ``run`` section),
+    validated once (:func:`desim.resolve_settings`); a bad value is an :class:`InputError`
+    naming its flag."""
+    from desim.settings import SettingsError, resolve_settings
+
+    try:
+        return resolve_settings(run, reps=args.reps, horizon=args.horizon, warmup=args.warmup,
+                                seed=args.seed, workers=args.workers, max_jobs=args.max_jobs,
+                                interval=getattr(args, "interval", None), out=args.out,
+                                resume=args.resume or None)
+    except SettingsError as exc:
+        raise InputError(exc.for_flag(f"fluidgap {args.command}")) from None
+
+
+@contextmanager
+def simulation(args, run, *, runs_per_replication: int = 1, quiet: bool = False):
+    """``(settings, progress)`` for a command that simulates: the settings from the flags with
+    the executor asked for (``--dask``) in them, and a progress bar over
+    ``replications × runs_per_replication`` runs (none with ``--quiet`` or ``quiet``)."""
+    settings = settings_from_flags(args, run)
+    total = settings.replications * runs_per_replication
+    with Progress(total, args.quiet or quiet) as progress, executor(args) as ex:
+        yield (settings if ex is None else settings.with_changes(executor=ex)), progress
+
+
+@contextmanager
+def executor(args):
+    """The Dask executor asked for with --dask, or None (local worker processes)."""
+    if not getattr(args, "dask", None):
+        yield None
+        return
+    from desim import dask_executor
+
+    with dask_executor(args.dask, workers=args.workers) as ex:
+        yield ex
+
+
+class Progress:
+    """A tqdm bar on stderr, only when stderr is a terminal and --quiet is not given."""
+
+    def __init__(self, total: int, quiet: bool, desc: str = "replications"):
+        self.bar = None
+        if not quiet and sys.stderr.isatty():
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=total, desc=desc, unit="rep", file=sys.stderr, leave=False)
+
+    def __call__(self, *_: Any) -> None:
+        if self.bar is not None:
+            self.bar.update(1)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+
+    def __enter__(self) -> "Progress":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()

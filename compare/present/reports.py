@@ -1,0 +1,110 @@
+"""What goes into the ``--report DIR`` of each command: the figures, the tables and the JSON.
+
+Each builder turns one result object into the arguments of :func:`compare.report.write_report`.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from .figures import pooled_waits, rates_figure, scale_figure, transient_figure, waits_figure
+from .html import ReportFiles, write_report
+
+__all__ = ["comparison_report", "station_report", "scale_report", "phases_report",
+           "staffing_report", "simulation_waits_figure"]
+
+
+def simulation_waits_figure(sim, scenario) -> Any | None:
+    """Waiting-time distributions of the places where somebody waited (None if nobody did or the
+    runs kept no waits)."""
+    if not sim.runs or sim.runs[0].waits is None:
+        return None
+    waits = pooled_waits(sim.runs)
+    if not waits:
+        return None
+    targets = {p: t.within for p, t in scenario.targets.service.items()}
+    return waits_figure(waits, scenario.time_unit, targets)
+
+
+def comparison_report(directory, comparison, scenario, *, caution: str,
+                      summary: list[str]) -> ReportFiles:
+    sim, fl = comparison.simulation, comparison.fluid
+    figures = {"rates": rates_figure(fl.rates, {t: v["rate"] for t, v in sim.transitions.items()},
+                                     scenario.time_unit)}
+    waits = simulation_waits_figure(sim, scenario)
+    if waits is not None:
+        figures["waits"] = waits
+    tables = {
+        "flags": comparison.flags_frame(),
+        "transition_gaps": comparison.gaps.transitions,
+        "place_gaps": comparison.gaps.places,
+        "pool_gaps": comparison.gaps.pools,
+        "totals": comparison.gaps.totals,
+    }
+    if comparison.transient is not None and len(comparison.transient):
+        figures["transient"] = transient_figure(comparison.transient, scenario.time_unit,
+                                                warmup=comparison.settings.warmup or None)
+        tables["per_interval"] = comparison.transient
+    return write_report(directory, title=f"fluidgap compare: {scenario.name}",
+                        summary_lines=summary, tables=tables, figures=figures,
+                        json_doc=comparison.to_json(), caution=caution)
+
+
+def station_report(directory, station, *, caution: str, summary: list[str]) -> ReportFiles:
+    figures = {}
+    waits = simulation_waits_figure(station.simulation, station.scenario)
+    if waits is not None:
+        figures["waits"] = waits
+    return write_report(directory, title="fluidgap station: self-check against the classical "
+                        "formulas", summary_lines=summary, tables={"checks": station.to_frame()},
+                        figures=figures, json_doc=station.to_json(), caution=caution)
+
+
+def scale_report(directory, result, *, caution: str, summary: list[str]) -> ReportFiles:
+    long = scale_long_table(result)
+    fits = {m: {"exponent": f.exponent, "coefficient": math.exp(f.intercept)}
+            for m, f in result.fits.items() if math.isfinite(f.exponent)}
+    figures = {"scale": scale_figure(long, fits)}
+    return write_report(directory, title=f"fluidgap scale: {result.scenario_name}",
+                        summary_lines=summary,
+                        tables={"scale": result.table, "fits": result.fits_frame()},
+                        figures=figures, json_doc=result.to_json(), caution=caution)
+
+
+def scale_long_table(result):
+    """The scale table in the long form the scale figure reads: factor, measure, gap, low, high."""
+    import pandas as pd
+
+    rows = []
+    for rec in result.table.to_dict("records"):
+        for metric in result.fits:
+            rows.append({"factor": rec["factor"], "measure": metric, "gap": rec[metric],
+                         "low": rec.get(f"{metric}_low"), "high": rec.get(f"{metric}_high")})
+    return pd.DataFrame(rows, columns=["factor", "measure", "gap", "low", "high"])
+
+
+def phases_report(directory, diagram, overlay, figure, *, json_doc: dict, caution: str,
+                  title: str, summary: list[str]) -> ReportFiles:
+    """The report of a phase diagram: its pieces (or grid), the simulated overlay if any, the
+    figure (also as PNG)."""
+    tables = {"pieces" if diagram.pieces else "grid": diagram.to_frame()}
+    if overlay is not None:
+        tables["overlay"] = overlay
+    return write_report(directory, title=title, summary_lines=summary, tables=tables,
+                        figures={"phases": figure}, json_doc=json_doc, caution=caution,
+                        write_png=True)
+
+
+def staffing_report(directory, result, figure, *, json_doc: dict, caution: str, title: str,
+                    summary: list[str]) -> ReportFiles:
+    """The report of a staffing search: the plans tried, the fluid plan per pool, the figure
+    (also as PNG)."""
+    pools = result.fluid_plan.to_frame().rename(columns={"staff": "fluid_plan"})
+    pools["plan"] = [result.plan[p] for p in pools["pool"]]
+    tables = {"fluid_plan": pools}
+    if result.tried:
+        tables = {"plans": result.to_frame()} | tables
+    return write_report(directory, title=title, summary_lines=summary, tables=tables,
+                        figures={"staffing": figure}, json_doc=json_doc, caution=caution,
+                        write_png=True)

@@ -1,0 +1,374 @@
+"""Text and JSON shapes of results for the command line."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fluid.scenario import Scenario
+
+from .tables import fmt, fmt_estimate, format_table
+
+#: Printed with every result and in every report (staffing can affect people's safety).
+CAUTION = (
+    "Decision support under the model's assumptions. Where staffing affects people's safety "
+    "(emergency or health lines), follow local regulations and professional practice."
+)
+
+__all__ = ["CAUTION", "inspect_text", "inspect_json", "fluid_text", "simulation_text", "describe_dist",
+           "comparison_text", "comparison_summary", "station_text", "station_summary",
+           "scale_text", "scale_summary", "flags_text"]
+
+
+def describe_dist(d: Any) -> str:
+    if d is None:
+        return "-"
+    name = d.name
+    if name == "deterministic":
+        return fmt(d.mean)
+    if name == "exponential":
+        return f"exp(mean {fmt(d.mean)})"
+    if name in ("lognormal", "gamma", "weibull", "erlang", "uniform", "empirical"):
+        return f"{name}(mean {fmt(d.mean)}, cv {fmt(d.cv, 3)})"
+    return f"{name}(mean {fmt(d.mean)})"
+
+
+def _source_text(src) -> str:
+    if src.kind == "poisson":
+        return f"Poisson {fmt(src.rate)}"
+    if src.kind == "profile":
+        p = src.profile
+        return f"profile step {fmt(p.step)}, {len(p.rates)} rates, {fmt(min(p.rates))}..{fmt(max(p.rates))}"
+    return f"trace, {len(src.trace)} arrivals"
+
+
+def _pool_text(pool) -> str:
+    if pool.schedule is None:
+        return str(pool.staff)
+    sched = pool.schedule
+    return f"schedule step {fmt(sched.step)}: {min(sched.staff)}..{max(sched.staff)}"
+
+
+def _arcs(arcs) -> str:
+    return ", ".join(n if w == 1 else f"{n} x{w}" for n, w in arcs.items()) or "(job ends)"
+
+
+def _outflow(s: Scenario, name: str) -> str:
+    node = s.places.get(name) or s.pools.get(name)
+    if getattr(node, "route", None) is not None:
+        return "route " + ", ".join(f"{t} {fmt(p, 3)}" for t, p in node.route.items())
+    if node.priority:
+        return "priority " + " > ".join(node.priority)
+    return ", ".join(s.outputs_of(name)) or "-"
+
+
+def inspect_text(s: Scenario, invariants: list[dict], uncovered: list[str]) -> str:
+    parts = [f"{s.name}  (file {s.file}, time unit {s.time_unit})"]
+    parts.append(format_table(
+        ["source", "arrivals", "into"],
+        [[n, _source_text(src), src.into] for n, src in s.sources.items()],
+    ))
+    parts.append(format_table(
+        ["pool", "staff", "outputs"],
+        [[n, _pool_text(p), _outflow(s, n)] for n, p in s.pools.items()],
+    ))
+    parts.append(format_table(
+        ["place", "hold", "patience", "outputs"],
+        [[n, describe_dist(p.hold),
+          describe_dist(p.patience) + (f" -> {p.abandon_to}" if p.abandon_to else ""),
+          _outflow(s, n)] for n, p in s.places.items()],
+    ))
+    parts.append(format_table(
+        ["transition", "takes", "gives"],
+        [[n, _arcs(t.inputs), _arcs(t.outputs)] for n, t in s.transitions.items()],
+    ))
+    inv_lines = ["conservation invariants (P-semiflows; weighted token sums that never change):"]
+    for inv in invariants:
+        inv_lines.append("  " + " + ".join(n if w == 1 else f"{fmt(w)}*{n}" for n, w in inv.items()))
+    if not invariants:
+        inv_lines.append("  none")
+    if uncovered:
+        inv_lines.append("pools on no invariant (agents can leak or multiply): " + ", ".join(uncovered))
+    parts.append("\n".join(inv_lines))
+    if s.targets.service or s.targets.abandonment_max is not None:
+        rows = [[p, f"{fmt(t.goal * 100, 3)} % within {fmt(t.within)}"] for p, t in s.targets.service.items()]
+        if s.targets.abandonment_max is not None:
+            rows.append(["abandonment", f"at most {fmt(s.targets.abandonment_max * 100, 3)} %"])
+        parts.append(format_table(["target", "goal"], rows))
+    return "\n\n".join(parts)
+
+
+def inspect_json(s: Scenario, invariants: list[dict], uncovered: list[str]) -> dict:
+    return {
+        "scenario": s.name,
+        "file": s.file,
+        "time_unit": s.time_unit,
+        "sources": {n: {"kind": src.kind, "into": src.into,
+                        "mean_rate": src.mean_rate(s.run.horizon)} for n, src in s.sources.items()},
+        "pools": {n: {"staff": p.staff, "priority": list(p.priority),
+                      "schedule": None if p.schedule is None else
+                      {"step": p.schedule.step, "staff": list(p.schedule.staff)},
+                      "outputs": list(s.outputs_of(n))} for n, p in s.pools.items()},
+        "places": {n: {"hold_mean": p.hold_mean,
+                       "hold": None if p.hold is None else p.hold.name,
+                       "patience_mean": None if p.patience is None else p.patience.mean,
+                       "abandon_to": p.abandon_to,
+                       "route": None if p.route is None else dict(p.route),
+                       "priority": list(p.priority),
+                       "outputs": list(s.outputs_of(n))} for n, p in s.places.items()},
+        "transitions": {n: {"in": dict(t.inputs), "out": dict(t.outputs),
+                            "ends_job": s.ends_job(n)} for n, t in s.transitions.items()},
+        "invariants": [dict(inv) for inv in invariants],
+        "uncovered_pools": list(uncovered),
+        "targets": {
+            "service": {p: {"within": t.within, "goal": t.goal} for p, t in s.targets.service.items()},
+            "abandonment_max": s.targets.abandonment_max,
+        },
+    }
+
+
+def fluid_text(s: Scenario, r) -> str:
+    unit = s.time_unit
+    head = f"{s.name}: fluid model ({'throughput LP' if r.method == 'lp' else 'integrated counter equations'})"
+    if getattr(r, "rounding", 0):
+        head += f"; hold times rounded to the grid by at most {fmt(100 * r.rounding, 3)} %"
+    rows = [[t, fmt(rate), "yes" if s.ends_job(t) else ""] for t, rate in r.rates.items()]
+    parts = [head, format_table(["transition", f"rate per {unit}", "ends job"], rows)]
+    pool_rows = []
+    for name in s.pools:
+        load = r.load.get(name)
+        pool_rows.append([name, fmt(s.pools[name].mean_staff(s.run.horizon)), fmt(load, 3),
+                          "yes" if name in r.bottlenecks else ""])
+    if pool_rows:
+        parts.append(format_table(["pool", "staff", "load", "bottleneck"], pool_rows))
+    done = sum(r.rates[t] for t in s.ending_transitions)
+    offered = sum(r.source_rates.values()) if getattr(r, "source_rates", None) else None
+    summary = f"jobs ended per {unit}: {fmt(done)}"
+    if offered is not None:
+        summary += f" of {fmt(offered)} arriving"
+    summary += "; bottlenecks: " + (", ".join(r.bottlenecks) if r.bottlenecks else "none (inflow-limited)")
+    parts.append(summary)
+    parts.append("The fluid model ignores patience and randomness: run `fluidgap simulate` or "
+                 "`fluidgap compare` for waiting, abandonment and service level.")
+    return "\n\n".join(parts)
+
+
+def _est(e, reps: int) -> str:
+    text = fmt_estimate(e)
+    return text if e is None or e.n == reps else f"{text} (n={e.n})"
+
+
+def simulation_text(s: Scenario, r) -> str:
+    unit = s.time_unit
+    n = r.replications
+    head = (f"{s.name}: simulation, {n} replications of [{fmt(r.warmup)}, {fmt(r.horizon)}] {unit}, "
+            f"seed {r.seed}.\nEvery figure is a mean [95 % Student t interval] over the {n} "
+            "replications (n= marks fewer, where a replication had nothing to measure).")
+    parts = [head]
+    parts.append(format_table(
+        ["transition", f"rate per {unit}"],
+        [[t, _est(v["rate"], n)] for t, v in r.transitions.items()],
+    ))
+    from desim import waiting_places
+
+    rows = []
+    for p in waiting_places(s):
+        v = r.places[p]
+        rows.append([p, _est(v["wait"], n), _est(v["queue"], n), _est(v["abandoned"], n),
+                     _est(v["served_within"], n) if "served_within" in v else "-"])
+    parts.append(format_table(
+        ["waiting place", f"wait ({unit})", "queue", "abandoned share", "served within target"],
+        rows))
+    if r.pools:
+        parts.append(format_table(
+            ["pool", "busy fraction"], [[p, _est(v["busy"], n)] for p, v in r.pools.items()]))
+    if r.sources:
+        parts.append(format_table(
+            ["source", "arrivals", "completed", "abandoned share", f"total wait ({unit})"],
+            [[name, _est(v["arrivals"], n), _est(v["completed"], n),
+              _est(v["abandoned_share"], n), _est(v["total_wait"], n)]
+             for name, v in r.sources.items()]))
+    if r.intervals is not None:
+        rows = [[f"{fmt(row.start)}-{fmt(row.end)}", row.metric, row.name,
+                 _est(_Row(row.mean, row.low, row.high, int(row.n)), n)]
+                for row in r.intervals.itertuples(index=False)]
+        parts.append(format_table(["interval", "metric", "where", "mean [95 % interval]"], rows,
+                                  title=f"per interval ({unit}):"))
+    if r.warnings:
+        parts.append("\n".join(f"note: {w}" for w in r.warnings))
+    return "\n\n".join(parts)
+
+
+class _Row:
+    __slots__ = ("mean", "low", "high", "n")
+
+    def __init__(self, mean, low, high, n):
+        self.mean, self.low, self.high, self.n = mean, low, high, n
+
+
+# --- compare, station, scale ---------------------------------------------------------------------
+
+FLAG_TITLES = {
+    "throughput_optimistic": "fluid throughput optimistic",
+    "hidden_congestion": "hidden congestion",
+    "abandonment_underestimated": "abandonment underestimated",
+    "near_critical": "near critical load",
+    "target_missed": "target missed",
+    "unstable": "unstable",
+}
+
+
+def _pct(x: float) -> str:
+    return fmt(100 * x, 3) + " %"
+
+
+def flags_text(flags) -> str:
+    """Flags grouped by kind; a throughput shortfall inherited by many transitions downstream
+    is listed once with the transitions it reaches."""
+    if not flags:
+        return "flags: none (the fluid answer holds within the simulation's intervals)"
+    import textwrap
+
+    lines: list[str] = []
+    header = f"flags ({len(flags)}):"
+    by_kind: dict[str, list] = {}
+    for f in flags:
+        by_kind.setdefault(f.kind, []).append(f)
+    for kind, group in by_kind.items():
+        title = FLAG_TITLES.get(kind, kind)
+        if kind == "throughput_optimistic" and len(group) > 2:
+            roots = [f for f in group if "begins upstream" not in f.message]
+            inherited = [f.where for f in group if "begins upstream" in f.message]
+            for f in roots:
+                lines.append(f"[{title}] {f.where}: {f.message}")
+            if inherited:
+                lines.append(f"[{title}] also below the fluid rate downstream of the above: "
+                             + ", ".join(inherited))
+            continue
+        for f in group:
+            lines.append(f"[{title}] {f.where}: {f.message}")
+    wrapped = [textwrap.fill(line, width=100, initial_indent="  ", subsequent_indent="      ")
+               for line in lines]
+    return "\n".join([header, *wrapped])
+
+
+def comparison_summary(s: Scenario, c) -> list[str]:
+    t = c.gaps.totals.set_index("metric")
+    out = t.loc["output_rate"]
+    lines = [f"{s.name}: {c.simulation.replications} replications of "
+             f"[{fmt(c.settings.warmup)}, {fmt(c.settings.horizon)}] {s.time_unit}, seed "
+             f"{c.settings.seed}; every simulated figure is a mean [95 % interval] over the "
+             "replications.",
+             f"jobs ended per {s.time_unit}: fluid {fmt(out['fluid'])}, simulated "
+             f"{fmt(out['mean'])} [{fmt(out['low'])}, {fmt(out['high'])}]"]
+    if "abandonment" in t.index:
+        ab = t.loc["abandonment"]
+        lines.append(f"abandonment: fluid {_pct(ab['fluid'])}, simulated {_pct(ab['mean'])} "
+                     f"[{_pct(ab['low'])}, {_pct(ab['high'])}]")
+    kinds = sorted({f.kind for f in c.flags})
+    lines.append("flags: " + (", ".join(kinds) if kinds else "none"))
+    return lines
+
+
+def _gap_rows(frame, name_col: str, extra=()):
+    rows = []
+    for r in frame.to_dict("records"):
+        est = _Row(r["mean"], r["low"], r["high"], int(r["n"]))
+        rel = r.get("rel_gap")
+        rows.append([r[name_col], *[r[e] for e in extra], fmt(r["fluid"]), fmt_estimate(est),
+                     "-" if rel is None or rel != rel else f"{100 * rel:+.1f} %"])
+    return rows
+
+
+def comparison_text(s: Scenario, c) -> str:
+    unit = s.time_unit
+    parts = ["\n".join(comparison_summary(s, c)[:-1]), flags_text(c.flags)]
+    parts.append(format_table(
+        ["transition", f"fluid rate per {unit}", "simulated [95 % interval]", "gap"],
+        _gap_rows(c.gaps.transitions, "transition")))
+    parts.append(format_table(
+        ["waiting place", "metric", "fluid state", "fluid", "simulated [95 % interval]", "gap"],
+        _gap_rows(c.gaps.places, "place", extra=("metric", "state"))))
+    if len(c.gaps.pools):
+        parts.append(format_table(
+            ["pool", "staff", "fluid load", "fluid busy", "simulated busy [95 % interval]", "gap"],
+            [[r[0], fmt(row["staff"]), fmt(row["load"], 3), *r[1:]]
+             for r, row in zip(_gap_rows(c.gaps.pools, "pool"),
+                               c.gaps.pools.to_dict("records"))]))
+    if c.transient is not None and len(c.transient):
+        rows = [[f"{fmt(r['start'])}-{fmt(r['end'])}", r["metric"], r["name"] or "",
+                 fmt(r["fluid"]), fmt_estimate(_Row(r["mean"], r["low"], r["high"], int(r["n"])))]
+                for r in c.transient.to_dict("records")]
+        parts.append(format_table(["interval", "metric", "where", "fluid",
+                                   "simulated [95 % interval]"], rows,
+                                  title=f"per interval ({unit}):"))
+    notes = list(c.notes)  # (they carry the simulation's warnings too)
+    if notes:
+        parts.append("\n".join(f"note: {n}" for n in notes))
+    return "\n\n".join(parts)
+
+
+def station_summary(r) -> list[str]:
+    agree = sum(c.agrees for c in r.checks)
+    sim = r.simulation
+    head = (f"station: {r.servers} agents, arrival rate {fmt(r.arrival_rate)}, mean hold "
+            f"{fmt(r.mean_hold)}, hold cv {fmt(r.hold_cv)}")
+    if r.patience_mean is not None:
+        head += f", mean patience {fmt(r.patience_mean)}"
+    if r.class_rates:
+        head += ", priority classes " + " > ".join(fmt(x) for x in r.class_rates)
+    return [head,
+            f"exact model: {r.model}; {sim.replications} replications of [{fmt(sim.warmup)}, "
+            f"{fmt(sim.horizon)}], seed {sim.seed}",
+            f"{agree} of {len(r.checks)} checks agree (formula inside the simulated 95 % interval)"]
+
+
+def station_text(r) -> str:
+    rows = [[c.metric, c.where, fmt(c.formula), fmt_estimate(c.simulation),
+             "yes" if c.agrees else "NO", c.source] for c in r.checks]
+    rows += [[c.metric, c.where, fmt(c.formula), fmt_estimate(c.simulation), "(not judged)",
+              c.source] for c in r.informative]
+    parts = ["\n".join(station_summary(r)),
+             format_table(["metric", "where", "formula", "simulated [95 % interval]", "agrees",
+                           "source"], rows)]
+    if r.notes:
+        parts.append("\n".join(f"note: {n}" for n in r.notes))
+    return "\n\n".join(parts)
+
+
+def scale_summary(r) -> list[str]:
+    lines = [f"{r.scenario_name}: scale study, factors {', '.join(fmt(k) for k in r.factors)}; "
+             f"{r.replications} replications each of [{fmt(r.warmup)}, {fmt(r.horizon)}] "
+             f"{r.time_unit}, seed {r.seed} (common random numbers)"]
+    for m, f in r.fits.items():
+        if f.exponent == f.exponent:
+            lines.append(f"{m}: decays as k^{fmt(f.exponent, 3)} (standard error "
+                         f"{fmt(f.stderr, 2)}, {f.points} points; about -1/2 expected)")
+        else:
+            lines.append(f"{m}: no fit ({'; '.join(f.notes)})")
+    return lines
+
+
+def scale_text(r) -> str:
+    cols = [c for c in ("factor", "arrivals", "fluid_output", "throughput_shortfall",
+                        "abandonment_gap", "max_transition_gap", "max_load",
+                        "unstable_replications") if c in r.table]
+    rows = []
+    for rec in r.table.to_dict("records"):
+        row = []
+        for c in cols:
+            v = rec[c]
+            if c in ("throughput_shortfall", "abandonment_gap") and v == v:
+                v = (f"{fmt(v, 3)} [{fmt(rec[c + '_low'], 3)}, {fmt(rec[c + '_high'], 3)}]")
+            row.append(v if isinstance(v, str) else fmt(v, 4))
+        rows.append(row)
+    heads = {"throughput_shortfall": "throughput shortfall [95 % interval]",
+             "abandonment_gap": "abandonment gap [95 % interval]",
+             "max_transition_gap": "largest transition gap (of the means)",
+             "fluid_output": "fluid output", "max_load": "largest load",
+             "unstable_replications": "unstable reps"}
+    parts = ["\n".join(scale_summary(r)),
+             format_table([heads.get(c, c) for c in cols], rows,
+                          title=f"per factor ({r.replications} replications each):")]
+    if r.notes:
+        parts.append("\n".join(f"note: {n}" for n in r.notes))
+    return "\n\n".join(parts)

@@ -1,0 +1,140 @@
+"""The main job: run one scenario as a fluid model and as a simulation and set them side by side.
+
+:func:`compare` runs :func:`fluid.analysis.throughput` and :func:`desim.replicate` on the same
+scenario and window, builds the gap tables (:mod:`compare.gaps`), the flags
+(:mod:`compare.flags`) and, for scenarios with profiles, traces or schedules (or when an
+``interval`` is asked for), the per-interval table (:mod:`compare.transient`). Times are in the
+scenario's time unit.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import math
+from dataclasses import dataclass, field
+from typing import Callable
+
+import pandas as pd
+
+from desim import SimulationResult, SimulationSettings, replicate, resolve_settings
+from fluid.analysis import FluidResult, throughput
+from fluid.scenario import Scenario, with_changes
+
+from .flags import Flag, find_flags
+from .gaps import Gaps, gap_tables
+from .transient import default_interval, transient_table
+
+__all__ = ["Comparison", "compare", "with_window"]
+
+
+def with_window(scenario: Scenario, settings: SimulationSettings) -> Scenario:
+    """``scenario`` with its ``run`` section set to ``settings``, so that the fluid model reads
+    time-varying rates over the same window [warmup, horizon] as the simulation."""
+    run = scenario.run
+    if (run.horizon, run.warmup, run.replications, run.seed) == (
+            settings.horizon, settings.warmup, settings.replications, settings.seed):
+        return scenario
+    return with_changes(scenario, {"run": settings.to_json()})
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Fluid against simulation for one scenario.
+
+    ``fluid``: :class:`fluid.analysis.FluidResult`; ``simulation``:
+    :class:`desim.SimulationResult`; ``gaps``: :class:`compare.gaps.Gaps`; ``flags``: tuple of
+    :class:`compare.flags.Flag`; ``transient``: the per-interval table (columns interval, start,
+    end, metric, name, fluid, mean, low, high, n) or None; ``settings``: the simulation settings
+    used; ``notes``: caveats."""
+
+    scenario_name: str
+    time_unit: str
+    settings: SimulationSettings
+    fluid: FluidResult
+    simulation: SimulationResult
+    gaps: Gaps
+    flags: tuple[Flag, ...]
+    transient: pd.DataFrame | None = None
+    interval: float | None = None
+    notes: tuple[str, ...] = ()
+    scenario: Scenario | None = field(default=None, repr=False, compare=False)
+
+    def flags_of(self, kind: str) -> tuple[Flag, ...]:
+        return tuple(f for f in self.flags if f.kind == kind)
+
+    def to_frame(self) -> pd.DataFrame:
+        """The gap tables in one tidy table (see :meth:`compare.gaps.Gaps.to_frame`)."""
+        return self.gaps.to_frame()
+
+    def flags_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([f.to_json() for f in self.flags], columns=["kind", "where", "message"])
+
+    def to_json(self) -> dict:
+        """``{"scenario", "time_unit", "settings", "fluid", "simulation", "gaps", "flags",
+        "transient", "interval", "notes"}`` (design.md §5); nan and inf become null."""
+        transient = None
+        if self.transient is not None:
+            transient = [{k: (None if isinstance(v, float) and not math.isfinite(v) else v)
+                          for k, v in rec.items()}
+                         for rec in self.transient.to_dict("records")]
+        return {
+            "scenario": self.scenario_name,
+            "time_unit": self.time_unit,
+            "settings": self.settings.to_json(),
+            "fluid": self.fluid.to_dict(),
+            "simulation": self.simulation.to_json(),
+            "gaps": self.gaps.to_json(),
+            "flags": [f.to_json() for f in self.flags],
+            "transient": transient,
+            "interval": self.interval,
+            "notes": list(self.notes),
+        }
+
+
+def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
+            reps: int | None = None, horizon: float | None = None,
+            warmup: float | None = None, seed: int | None = None, workers: int | None = None,
+            executor: cf.Executor | None = None, progress: Callable[[], object] | None = None,
+            interval: float | None = None, record_waits: bool = False,
+            max_jobs: int | None = None, out=None, resume: bool = False) -> Comparison:
+    """Run ``scenario`` as a fluid model and as simulated replications over [0, horizon]
+    measured over [warmup, horizon] (time units), and compare them.
+
+    ``settings``: a :class:`desim.SimulationSettings`; each keyword given wins over it and
+    anything unset comes from ``scenario.run`` (see :func:`desim.resolve_settings`).
+    ``progress``/``record_waits`` go to :func:`desim.replicate`. ``interval``: length of the
+    per-interval comparison; by default it is built only for time-varying scenarios, with the
+    shortest profile or schedule step."""
+    settings = resolve_settings(scenario.run, settings, reps=reps, horizon=horizon,
+                                warmup=warmup, seed=seed, workers=workers, executor=executor,
+                                interval=interval, max_jobs=max_jobs, out=out,
+                                resume=resume or None)
+    windowed = with_window(scenario, settings)
+    notes: list[str] = []
+    interval = settings.interval
+    if interval is None and scenario.has_time_variation:
+        interval = default_interval(scenario, settings.horizon)
+        settings = settings.with_changes(interval=interval)
+    fluid = throughput(windowed)
+    sim = replicate(windowed, settings=settings, progress=progress, record_waits=record_waits)
+    gaps = gap_tables(windowed, fluid, sim)
+    flags = find_flags(windowed, fluid, sim, gaps)
+    transient = None
+    if sim.intervals is not None:
+        transient = transient_table(windowed, sim.intervals, fluid.counters, settings.horizon)
+    if scenario.has_patience:
+        notes.append("the fluid throughput ignores patience; the waits and abandonment of "
+                     "overloaded places with patience follow Whitt's (2006) fluid model")
+    if scenario.has_time_variation:
+        notes.append("time-varying scenario: fluid figures are means over the window "
+                     f"[{settings.warmup:g}, {settings.horizon:g}] read from the counters, which "
+                     "ignore patience (no fluid abandonment)")
+    if sim.unstable_replications:
+        notes.append(f"{sim.unstable_replications} replications stopped at the job cap")
+    notes += [f"fluid: {n}" for n in fluid.notes]
+    notes += [f"simulation: {w}" for w in sim.warnings]
+    return Comparison(
+        scenario_name=scenario.name, time_unit=scenario.time_unit, settings=settings,
+        fluid=fluid, simulation=sim, gaps=gaps, flags=flags, transient=transient,
+        interval=interval, notes=tuple(notes), scenario=windowed,
+    )

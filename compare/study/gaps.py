@@ -1,0 +1,325 @@
+"""Gap tables: the fluid prediction set against the simulated estimate, figure by figure.
+
+Three tables (tidy pandas frames) and two totals, all rates per the scenario's time unit and all
+times in it:
+
+* per transition: fluid rate vs simulated rate (mean, 95 % interval, replications);
+* per waiting place (:func:`desim.waiting_places`): fluid vs simulated ``wait`` (mean over all
+  jobs leaving the place, served or abandoning), ``abandoned`` (share), ``queue`` (time-average
+  number waiting) and ``served_within`` (share taken within the target's ``within``; places with
+  a target only);
+* per pool: fluid load (offered work / staff, may exceed 1) and fluid busy fraction (work at the
+  fluid rates / staff) vs simulated busy fraction;
+* totals: output rate (the transitions that end jobs) and overall abandonment (abandoned /
+  ended, per replication from the source totals).
+
+Every row carries ``gap = simulated mean − fluid`` and ``rel_gap = gap / |fluid|`` (nan when the
+fluid value is 0 or infinite): a negative throughput gap means the simulation serves less than
+the fluid model promises.
+
+The fluid figures of a waiting place p (steady state; the fluid model of design.md §4.1 ignores
+patience, so an overloaded place simply shows less outflow than inflow):
+
+* λ_p = inflow at the fluid rates (sources into p and transitions putting jobs into p);
+  ρ_p = outflow at the fluid rates (p's output transitions), the capacity the fluid gives p;
+* ρ_p >= λ_p (relative tolerance :data:`PLACE_TOLERANCE`): "underloaded" — no wait, no
+  abandonment, no queue, everyone within the target;
+* ρ_p < λ_p with patience (CDF F): "overloaded" — Whitt's (2006) fluid model with throughput
+  ρ_p: P(Ab) = 1 − ρ_p/λ_p, the served jobs' wait w solves λ_p(1 − F(w)) = ρ_p, queue
+  q = λ_p ∫₀^w (1 − F); the mean wait of all leaving jobs (what the simulation measures) is
+  q/λ_p by Little's law; the share served within the target is ρ_p/λ_p if w <= within, else 0
+  (every served fluid particle waits exactly w);
+* ρ_p < λ_p without patience: "unstable" — the queue grows without bound (wait and queue inf,
+  served within 0);
+* scenarios with profiles, traces or schedules: "time-varying" — the figures over the statistics
+  window are read from the integrated counters (:func:`compare.transient.window_figures`):
+  time-average queue, wait by Little's law, served within by first-in first-out on the fluid
+  curves, and no abandonment (the counters ignore patience).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from desim import Estimate, SimulationResult, waiting_places
+from fluid.analysis import FluidResult
+from fluid.scenario import Scenario
+
+from .transient import counters_for, window_figures
+from ..formulas.whitt import whitt_fluid
+
+__all__ = [
+    "PLACE_TOLERANCE",
+    "FluidPlace",
+    "Gaps",
+    "fluid_busy",
+    "fluid_place",
+    "fluid_places",
+    "fluid_abandonment",
+    "gap_tables",
+    "place_inflow",
+    "place_outflow",
+    "simulated_abandonment",
+    "simulated_output",
+]
+
+#: Relative tolerance below which a place's fluid outflow counts as keeping up with its inflow
+#: (the LP is exact to ~1e-9, the counters' long-run slopes to ~1e-6).
+PLACE_TOLERANCE = 1e-5
+
+ROW_COLUMNS = ["fluid", "mean", "low", "high", "n", "gap", "rel_gap"]
+
+
+def num(x) -> float | None:
+    """A JSON-ready number: nan and inf become None."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _gap(fluid: float, est: Estimate) -> tuple[float, float]:
+    gap = est.mean - fluid
+    rel = gap / abs(fluid) if fluid != 0 and math.isfinite(fluid) else math.nan
+    return gap, rel
+
+
+def _row(fluid: float, est: Estimate) -> list:
+    return [fluid, est.mean, est.low, est.high, est.n, *_gap(fluid, est)]
+
+
+def _row_json(fluid: float, est: Estimate) -> dict:
+    gap, rel = _gap(fluid, est)
+    return {"fluid": num(fluid), "simulation": est.to_json(), "gap": num(gap),
+            "rel_gap": num(rel)}
+
+
+# --- fluid figures per place and pool ------------------------------------------------------------
+
+
+def place_inflow(scenario: Scenario, fluid: FluidResult, place: str) -> float:
+    """Jobs per time unit entering ``place`` at the fluid rates."""
+    total = sum(fluid.source_rates.get(s, 0.0) for s in scenario.sources_into(place))
+    for q in scenario.inputs_of(place):
+        total += scenario.transitions[q].outputs[place] * fluid.rates[q]
+    return float(total)
+
+
+def place_outflow(scenario: Scenario, fluid: FluidResult, place: str) -> float:
+    """Jobs per time unit taken out of ``place`` at the fluid rates."""
+    return float(sum(scenario.transitions[q].inputs[place] * fluid.rates[q]
+                     for q in scenario.outputs_of(place)))
+
+
+@dataclass(frozen=True)
+class FluidPlace:
+    """Fluid figures of one waiting place (see the module docstring). ``inflow`` λ_p and
+    ``capacity`` ρ_p in jobs per time unit; ``wait`` mean wait of all leaving jobs and
+    ``wait_served`` wait of served jobs (time units); ``abandoned`` share; ``queue`` jobs
+    waiting; ``served_within`` share taken within ``within`` (None without a target);
+    ``state``: "idle", "underloaded", "overloaded", "unstable" or "time-varying"."""
+
+    place: str
+    inflow: float
+    capacity: float
+    state: str
+    wait: float
+    wait_served: float
+    abandoned: float
+    queue: float
+    served_within: float | None = None
+    within: float | None = None
+
+    @property
+    def no_wait(self) -> bool:
+        """True when the fluid model says jobs here do not wait."""
+        return self.wait <= 1e-9 * max(1.0, self.wait_served if math.isfinite(self.wait_served)
+                                       else 1.0)
+
+    def to_json(self) -> dict:
+        return {"state": self.state, "inflow": num(self.inflow), "capacity": num(self.capacity),
+                "wait": num(self.wait), "wait_served": num(self.wait_served),
+                "abandoned": num(self.abandoned), "queue": num(self.queue),
+                "served_within": num(self.served_within), "within": num(self.within)}
+
+
+def fluid_place(scenario: Scenario, fluid: FluidResult, place: str) -> FluidPlace:
+    """Fluid figures of ``place`` (see the module docstring)."""
+    target = scenario.targets.service.get(place)
+    within = None if target is None else float(target.within)
+    lam = place_inflow(scenario, fluid, place)
+    rho = place_outflow(scenario, fluid, place)
+    if fluid.window is not None and fluid.counters is not None:
+        sol = counters_for(scenario, fluid.window[1], fluid.counters)
+        fig = window_figures(scenario, sol, place, fluid.window, within)
+        return FluidPlace(place, fig["inflow"], fig["outflow"], "time-varying", fig["wait"],
+                          fig["wait"], 0.0, fig["queue"], fig.get("served_within"), within)
+    if lam <= 0:
+        return FluidPlace(place, lam, rho, "idle", 0.0, 0.0, 0.0, 0.0,
+                          None if target is None else 1.0, within)
+    if rho >= lam * (1 - PLACE_TOLERANCE):
+        return FluidPlace(place, lam, rho, "underloaded", 0.0, 0.0, 0.0, 0.0,
+                          None if target is None else 1.0, within)
+    patience = scenario.places[place].patience
+    if patience is None:
+        return FluidPlace(place, lam, rho, "unstable", math.inf, math.inf, 0.0, math.inf,
+                          None if target is None else 0.0, within)
+    # Whitt (2006) with the fluid's throughput ρ as capacity: servers ρ, mean hold 1
+    w = whitt_fluid(lam, rho, 1.0, patience.cdf)
+    served = None
+    if target is not None:
+        served = (1.0 - w.p_abandon) if w.wait_served <= within * (1 + 1e-12) else 0.0
+    return FluidPlace(place, lam, rho, "overloaded", w.queue / lam, w.wait_served, w.p_abandon,
+                      w.queue, served, within)
+
+
+def fluid_places(scenario: Scenario, fluid: FluidResult) -> dict[str, FluidPlace]:
+    """:func:`fluid_place` of every waiting place (:func:`desim.waiting_places`)."""
+    return {p: fluid_place(scenario, fluid, p) for p in waiting_places(scenario)}
+
+
+def fluid_busy(scenario: Scenario, fluid: FluidResult) -> dict[str, float]:
+    """Fluid busy fraction per pool: agents held at the fluid rates (Σ over the job places on the
+    pool's invariant of weight × mean hold × inflow) over staff; nan for a pool on no
+    invariant or without staff."""
+    from fluid.invariants import pool_invariants
+
+    invariants = pool_invariants(scenario)
+    out = {}
+    for r in scenario.pools:
+        inv, staff = invariants[r], fluid.staff.get(r, 0.0)
+        if not inv or staff <= 0:
+            out[r] = math.nan
+            continue
+        work = sum(w * scenario.places[p].hold_mean * place_inflow(scenario, fluid, p)
+                   for p, w in inv.items() if p in scenario.places)
+        out[r] = work / staff
+    return out
+
+
+def fluid_abandonment(scenario: Scenario, places: dict[str, FluidPlace],
+                      fluid: FluidResult) -> float:
+    """Overall fluid abandonment: jobs abandoning per time unit (at places without
+    ``abandon_to``) over jobs arriving per time unit."""
+    arrivals = sum(fluid.source_rates.values())
+    if arrivals <= 0:
+        return math.nan
+    lost = sum(fp.inflow * fp.abandoned for p, fp in places.items()
+               if scenario.places[p].abandon_to is None)
+    return lost / arrivals
+
+
+# --- simulated totals -----------------------------------------------------------------------------
+
+
+def simulated_output(scenario: Scenario, sim: SimulationResult) -> Estimate:
+    """Total rate of the transitions that end jobs, per replication, as an estimate."""
+    ending = scenario.ending_transitions or tuple(scenario.transitions)
+    per_rep = np.sum([sim.raw("transition", q, "rate") for q in ending], axis=0)
+    return Estimate.from_values(per_rep)
+
+
+def simulated_abandonment(sim: SimulationResult) -> Estimate:
+    """Overall abandonment per replication: Σ abandoned / Σ (completed + abandoned) over the
+    sources (jobs that ended in the window), as an estimate."""
+    names = list(sim.sources)
+    if not names:
+        return Estimate.from_values([])
+    ab = np.sum([sim.raw("source", s, "abandoned") for s in names], axis=0)
+    done = np.sum([sim.raw("source", s, "completed") for s in names], axis=0)
+    ended = ab + done
+    share = np.where(ended > 0, ab / np.where(ended > 0, ended, 1.0), np.nan)
+    return Estimate.from_values(share)
+
+
+# --- the tables ----------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Gaps:
+    """Gap tables of one comparison (see the module docstring).
+
+    ``transitions``: columns transition, fluid, mean, low, high, n, gap, rel_gap;
+    ``places``: place, metric, state, fluid, mean, low, high, n, gap, rel_gap;
+    ``pools``: pool, staff, load, fluid (busy at the fluid rates), mean, low, high, n, gap,
+    rel_gap; ``totals``: metric (output_rate, abandonment), fluid, mean, low, high, n, gap,
+    rel_gap. ``fluid_places``: the :class:`FluidPlace` of every waiting place; ``estimates``:
+    the totals' simulated :class:`~desim.Estimate` by metric."""
+
+    time_unit: str
+    transitions: pd.DataFrame
+    places: pd.DataFrame
+    pools: pd.DataFrame
+    totals: pd.DataFrame
+    fluid_places: dict = field(default_factory=dict)
+    estimates: dict = field(default_factory=dict)
+
+    def to_frame(self) -> pd.DataFrame:
+        """All rows in one tidy table: kind, name, metric, fluid, mean, low, high, n, gap,
+        rel_gap."""
+        cols = ["kind", "name", "metric", *ROW_COLUMNS]
+        parts = [
+            self.transitions.rename(columns={"transition": "name"}).assign(kind="transition",
+                                                                           metric="rate"),
+            self.places.rename(columns={"place": "name"}).assign(kind="place"),
+            self.pools.rename(columns={"pool": "name"}).assign(kind="pool", metric="busy"),
+            self.totals.rename(columns={"metric": "name"}).assign(kind="total",
+                                                                  metric=lambda d: d["name"]),
+        ]
+        return pd.concat([p[cols] for p in parts if len(p)], ignore_index=True)
+
+    def to_json(self) -> dict:
+        """``{"transitions": {t: row}, "places": {p: {state, inflow, capacity, wait_served,
+        metric: row}}, "pools": {r: {staff, load, busy: row}}, "totals": {metric: row}}`` with
+        row = ``{"fluid", "simulation": estimate, "gap", "rel_gap"}``."""
+
+        def est(r) -> Estimate:
+            return Estimate(float(r.mean), float(r.low), float(r.high), int(r.n))
+
+        transitions = {r.transition: _row_json(r.fluid, est(r))
+                       for r in self.transitions.itertuples(index=False)}
+        places: dict = {p: {k: v for k, v in fp.to_json().items()
+                            if k in ("state", "inflow", "capacity", "wait_served", "within")}
+                        for p, fp in self.fluid_places.items()}
+        for r in self.places.itertuples(index=False):
+            places.setdefault(r.place, {})[r.metric] = _row_json(r.fluid, est(r))
+        pools = {r.pool: {"staff": num(r.staff), "load": num(r.load),
+                          "busy": _row_json(r.fluid, est(r))}
+                 for r in self.pools.itertuples(index=False)}
+        totals = {r.metric: _row_json(r.fluid, est(r)) for r in self.totals.itertuples(index=False)}
+        return {"transitions": transitions, "places": places, "pools": pools, "totals": totals}
+
+
+def gap_tables(scenario: Scenario, fluid: FluidResult, sim: SimulationResult) -> Gaps:
+    """Build the gap tables of ``scenario`` from its fluid answer and its simulation."""
+    trans = [[q, *_row(fluid.rates[q], sim.transitions[q]["rate"])] for q in scenario.transitions]
+    places_fluid = fluid_places(scenario, fluid)
+    place_rows = []
+    for p, fp in places_fluid.items():
+        sim_p = sim.places[p]
+        values = {"wait": fp.wait, "abandoned": fp.abandoned, "queue": fp.queue}
+        if fp.served_within is not None and "served_within" in sim_p:
+            values["served_within"] = fp.served_within
+        for metric, value in values.items():
+            place_rows.append([p, metric, fp.state, *_row(value, sim_p[metric])])
+    busy = fluid_busy(scenario, fluid)
+    pool_rows = [[r, fluid.staff.get(r, math.nan), fluid.load.get(r, math.nan),
+                  *_row(busy[r], sim.pools[r]["busy"])] for r in scenario.pools]
+    output = simulated_output(scenario, sim)
+    abandonment = simulated_abandonment(sim)
+    totals = [["output_rate", *_row(fluid.output_rate, output)],
+              ["abandonment", *_row(fluid_abandonment(scenario, places_fluid, fluid),
+                                    abandonment)]]
+    return Gaps(
+        time_unit=scenario.time_unit,
+        transitions=pd.DataFrame(trans, columns=["transition", *ROW_COLUMNS]),
+        places=pd.DataFrame(place_rows, columns=["place", "metric", "state", *ROW_COLUMNS]),
+        pools=pd.DataFrame(pool_rows, columns=["pool", "staff", "load", *ROW_COLUMNS]),
+        totals=pd.DataFrame(totals, columns=["metric", *ROW_COLUMNS]),
+        fluid_places=places_fluid,
+        estimates={"output_rate": output, "abandonment": abandonment},
+    )

@@ -1,0 +1,129 @@
+"""Simulated overlay of a phase diagram: the simulation at integer staff points.
+
+Every point is simulated with the same seed (common random numbers) and set against the fluid
+rate of the diagram; the table feeds :func:`compare.phase_plot.phase_figure`. Rates per the
+scenario's time unit.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import itertools
+import math
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from desim import Estimate, SimulationSettings, resolve_settings
+from fluid.counters import integrate_counters
+from fluid.phases import PhaseDiagram
+from fluid.scenario import Scenario
+from fluid.staffing import with_staff
+
+from .sweep import Sweep
+from .staffing_search import ABANDONMENT, meets_targets, overall_abandonment, target_estimates
+
+__all__ = ["phase_overlay"]
+
+
+def _integer_points(diagram: PhaseDiagram, max_points: int) -> list[tuple[int, ...]]:
+    values = [list(range(math.ceil(lo), math.floor(hi) + 1))
+              for lo, hi in (diagram.ranges[p] for p in diagram.axes)]
+    if not all(values):
+        raise ValueError("the diagram's ranges hold no whole staff level")
+    while math.prod(len(v) for v in values) > max_points:
+        # thin the longest axis, keeping both ends
+        i = max(range(len(values)), key=lambda k: len(values[k]))
+        v = values[i]
+        if len(v) <= 2:
+            break
+        values[i] = v[::2] + ([v[-1]] if v[::2][-1] != v[-1] else [])
+    return list(itertools.product(*values))
+
+
+def _fluid_service_levels(scenario: Scenario) -> dict[str, float]:
+    """The fluid model's service level at every place with a target (patience ignored): 1 when
+    its fluid queue stays empty over the statistics window (every job taken at once); 0 when the
+    queue grows without bound (constant rates) or holds so much that every job waits longer than
+    the target's ``within`` (Little's law on the fluid queue); nan otherwise (a queue that
+    builds and drains within a day)."""
+    timed = scenario.has_time_variation
+    sol = integrate_counters(scenario, **({"horizon": scenario.run.horizon} if timed else {}))
+    out = {}
+    for place, target in scenario.targets.service.items():
+        w = sol.waiting[place]
+        tail = w[int(round(scenario.run.warmup / sol.dt)):] if timed else w[len(w) // 2:]
+        inflow = sum(sol.rates[q] for q in scenario.inputs_of(place))
+        inflow += sum(sol.source_rates[s] for s in scenario.sources_into(place))
+        tol = 1e-6 * (1.0 + inflow * sol.dt)
+        taken = sum(sol.rates[q] for q in scenario.outputs_of(place))
+        if tail.size == 0 or float(np.max(tail)) <= tol:
+            out[place] = 1.0
+        elif not timed and (tail[-1] - tail[len(tail) // 2] > tol
+                            or (taken > 0 and float(tail[-1]) / taken > target.within)):
+            out[place] = 0.0
+        else:
+            out[place] = math.nan
+    return out
+
+
+def phase_overlay(scenario: Scenario, diagram: PhaseDiagram,
+                  settings: SimulationSettings | None = None, *, reps: int | None = None,
+                  horizon: float | None = None, warmup: float | None = None,
+                  seed: int | None = None, workers: int | None = None,
+                  executor: cf.Executor | None = None,
+                  progress: Callable[[], object] | None = None,
+                  max_points: int = 49, out=None, resume: bool = False) -> pd.DataFrame:
+    """Simulate the integer staff points of ``diagram`` (thinned to at most ``max_points``,
+    keeping the ends of each axis) with the same settings and seed at every point (common
+    random numbers, :class:`~compare.study.sweep.Sweep`), the other pools at the scenario's
+    staff. ``settings`` and the simulation keywords as in :func:`compare.compare`.
+
+    Returns one row per point: a (staff of the first axis), b (of the second; only with two
+    axes), fluid_rate and the simulated rate of
+    the diagram's transitions (sim_mean, sim_low, sim_high, n; per the scenario's time unit),
+    gap = (fluid − simulated mean) / simulated mean, rate_optimistic and optimistic (the fluid
+    rate above the simulated interval); for every place with a service-level target:
+    ``<place>_sl_fluid`` (see :func:`_fluid_service_levels`), ``<place>_sl_mean``, ``_sl_low``,
+    ``_sl_high`` and ``_sl_goal``; sl_optimistic (some fluid service level above its simulated
+    interval); targets_met (every target holds with confidence, as in
+    :func:`compare.study.staffing_search.meets_targets`; nan without targets);
+    abandonment_mean/_low/_high (all sources); unstable (replications stopped at the job limit).
+    With a run folder ``out``, each point keeps its replications in ``out/<a><A>-<b><B>``
+    (``out/<a><A>`` with one axis)."""
+    cfg = resolve_settings(scenario.run, settings, reps=reps, horizon=horizon, warmup=warmup,
+                           seed=seed, workers=workers, executor=executor, out=out,
+                           resume=resume or None)
+    points = _integer_points(diagram, max_points)
+    targets = scenario.targets.service
+    rows = []
+    with Sweep(cfg, progress) as sweep:
+        for pt in points:
+            staff = dict(zip(diagram.axes, pt))
+            variant = with_staff(scenario, staff)
+            sim = sweep.run(variant, "-".join(f"{p}{n}" for p, n in staff.items()))
+            rate = Estimate.from_values(sum(sim.raw("transition", q, "rate") for q in diagram.of))
+            fluid = float(diagram.rate_at(*pt))
+            gap = (fluid - rate.mean) / rate.mean if rate.mean else math.nan
+            row = dict(zip("ab", pt)) | dict(
+                fluid_rate=fluid, sim_mean=rate.mean, sim_low=rate.low, sim_high=rate.high,
+                n=rate.n, gap=gap,
+                rate_optimistic=bool(math.isfinite(rate.high) and fluid > rate.high))
+            estimates = target_estimates(scenario, sim)
+            fluid_sl = _fluid_service_levels(variant)
+            sl_opt = False
+            for place, target in targets.items():
+                est, fl = estimates[place], fluid_sl[place]
+                row |= {f"{place}_sl_fluid": fl, f"{place}_sl_mean": est.mean,
+                        f"{place}_sl_low": est.low, f"{place}_sl_high": est.high,
+                        f"{place}_sl_goal": target.goal}
+                sl_opt |= bool(math.isfinite(fl) and math.isfinite(est.high) and fl > est.high)
+            ab = estimates.get(ABANDONMENT) or overall_abandonment(sim)
+            met = meets_targets(scenario, estimates) and not sim.unstable_replications
+            row |= dict(targets_met=met if estimates else math.nan, sl_optimistic=sl_opt,
+                        optimistic=row["rate_optimistic"],
+                        abandonment_mean=ab.mean, abandonment_low=ab.low,
+                        abandonment_high=ab.high, unstable=sim.unstable_replications)
+            rows.append(row)
+    return pd.DataFrame(rows)
