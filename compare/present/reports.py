@@ -104,7 +104,7 @@ def staffing_report(directory, result, figure, *, json_doc: dict, caution: str, 
     pools["plan"] = [result.plan[p] for p in pools["pool"]]
     tables = {"fluid_plan": pools}
     if result.tried:
-        tables = {"plans": result.to_frame()} | tables
+        tables = {"plans": result.plans_table()} | tables
     return write_report(directory, title=title, summary_lines=summary, tables=tables,
                         figures={"staffing": figure}, json_doc=json_doc, caution=caution,
                         write_png=True)

@@ -163,7 +163,29 @@ class ScaleResult:
     seed: int
 
     def to_frame(self) -> pd.DataFrame:
-        return self.table
+        """Tidy: one row per factor and figure, columns factor, metric, fluid (the fluid value,
+        nan for a gap), mean, low, high, n (the simulated estimate over n replications, or the
+        gap with the interval it inherits from it). Metrics: output (rate of jobs ending, per
+        time unit), abandonment (share of arrivals), throughput_shortfall and abandonment_gap
+        (see the module docstring), max_transition_gap (no interval), max_load (fluid)."""
+        nan = math.nan
+        rows = []
+        for r in self.table.to_dict("records"):
+            k, n = r["factor"], r["n"]
+            rows += [
+                (k, "output", r["fluid_output"], r["output_mean"], r["output_low"],
+                 r["output_high"], n),
+                (k, "abandonment", r["fluid_abandonment"], r["abandonment_mean"],
+                 r["abandonment_low"], r["abandonment_high"], n),
+                (k, "throughput_shortfall", nan, r["throughput_shortfall"],
+                 r["throughput_shortfall_low"], r["throughput_shortfall_high"], n),
+                (k, "abandonment_gap", nan, r["abandonment_gap"], r["abandonment_gap_low"],
+                 r["abandonment_gap_high"], n),
+                (k, "max_transition_gap", nan, r["max_transition_gap"], nan, nan, n),
+                (k, "max_load", r["max_load"], nan, nan, nan, 0),
+            ]
+        return pd.DataFrame(rows, columns=["factor", "metric", "fluid", "mean", "low", "high",
+                                           "n"])
 
     def fits_frame(self) -> pd.DataFrame:
         """metric, exponent, stderr, intercept, points."""

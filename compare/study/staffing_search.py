@@ -129,6 +129,19 @@ class StaffingResult:
         }
 
     def to_frame(self) -> pd.DataFrame:
+        """Tidy: one row per plan tried and target, columns trial, step, staff (``pool=n``
+        separated by spaces), cost, meets, target, mean, low, high, n (the simulated estimate
+        of the target's figure: a service level, or the abandonment share)."""
+        rows = []
+        for i, t in enumerate(self.tried):
+            staff = " ".join(f"{p}={n}" for p, n in t.staff.items())
+            for name, e in t.estimates.items():
+                rows.append((i, t.step, staff, t.cost, t.meets, name, e.mean, e.low, e.high,
+                             e.n))
+        return pd.DataFrame(rows, columns=["trial", "step", "staff", "cost", "meets", "target",
+                                           "mean", "low", "high", "n"])
+
+    def plans_table(self) -> pd.DataFrame:
         """One row per plan tried, in order: trial, step, one column per pool (agents), cost,
         meets, worst_shortfall, and per target <target>_mean, _low, _high, _n."""
         rows = []

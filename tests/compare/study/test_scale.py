@@ -104,7 +104,7 @@ def test_scale_study_gap_shrinks_on_the_demo():
     # significantly below 0 (exponent + 1.96·stderr < 0). Same seed for every factor (CRN).
     s = load_scenario(DEMO)
     r = scale_study(s, (1, 2, 4, 8, 16), reps=6, horizon=600, warmup=60, seed=7, workers=2)
-    t = r.to_frame()
+    t = r.table
     assert list(t["factor"]) == [1, 2, 4, 8, 16]
     assert np.allclose(t["fluid_output"], 4.0 * t["factor"])
     for metric in ("throughput_shortfall", "abandonment_gap"):

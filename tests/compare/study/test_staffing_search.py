@@ -162,7 +162,7 @@ def test_search_staffs_each_pool_for_its_own_target():
         assert result.plan == expected, costs
         assert result.plan_cost == pytest.approx(
             sum(result.costs[p] * n for p, n in expected.items()))
-    frame = result.to_frame()
+    frame = result.plans_table()
     assert {"trial", "step", "sales", "care", "cost", "meets", "sales_queue_mean",
             "care_queue_low"} <= set(frame.columns)
     assert frame["step"].iloc[0] == "start"
