@@ -212,7 +212,7 @@ def _simpy_station(scenario: Scenario, horizon: float, seed: int) -> tuple[int, 
     """Hand-written process-per-caller SimPy model: arrivals, then each caller requests an agent,
     holds it and releases it. Returns (arrivals, mean wait of callers taken before the horizon)."""
     gaps, holds = _streams(scenario, seed)
-    rate = scenario.sources["calls"].rate
+    rate = scenario.sources["calls"].arrivals.rate
     env = simpy.Environment()
     agents = simpy.Resource(env, capacity=scenario.pools["agents"].staff)
     tally = [0, 0, 0.0]  # arrivals, callers taken, their total wait
@@ -247,7 +247,7 @@ def _heap_station(scenario: Scenario, horizon: float, seed: int) -> tuple[int, f
     """FCFS M/M/c by the workload-vector recursion: each caller starts at max(arrival, earliest
     next-free time of the c agents) and that agent is next free at start + hold."""
     gaps, holds = _streams(scenario, seed)
-    rate = scenario.sources["calls"].rate
+    rate = scenario.sources["calls"].arrivals.rate
     free = [0.0] * scenario.pools["agents"].staff  # a valid heap
     replace = heapq.heapreplace
     t, n, taken, waited = 0.0, 0, 0, 0.0

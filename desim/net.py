@@ -20,11 +20,12 @@ from __future__ import annotations
 import heapq
 import math
 from collections import deque
-from typing import Iterator
+from typing import Callable, Iterator
 
 import numpy as np
 
 from fluid.scenario import Scenario
+from fluid.sources import ArrivalClock
 
 from .streams import block_draws, stream_rng, uniform_draws
 
@@ -276,56 +277,25 @@ class TransitionState:
 
 
 class SourceState:
-    """Arrivals of one source and the cumulative counts of its jobs."""
+    """Arrivals of one source and the cumulative counts of its jobs.
 
-    __slots__ = ("name", "place", "gaps", "spacing", "rate", "step", "rates", "interval", "trace",
-                 "trace_i", "arrived", "completed", "abandoned", "wait_sum")
+    ``next_time(now)``: the time of the arrival after the one at ``now`` (inf when there is
+    none), from the run's :class:`fluid.sources.ArrivalClock`; ``spacing``: that clock's times
+    between arrivals when the rate is constant (read directly by the engine's hot path), else
+    None."""
 
-    def __init__(self, name: str, place: PlaceState):
+    __slots__ = ("name", "place", "spacing", "next_time", "arrived", "completed", "abandoned",
+                 "wait_sum")
+
+    def __init__(self, name: str, place: PlaceState, clock: ArrivalClock):
         self.name = name
         self.place = place
-        self.gaps: Iterator[float] | None = None  # standard exponential draws (profiles)
-        self.spacing: Iterator[float] | None = None  # times between arrivals (constant rate)
-        self.rate = 0.0
-        self.step = 0.0
-        self.rates: tuple[float, ...] = ()
-        self.interval = 0
-        self.trace: tuple[float, ...] = ()
-        self.trace_i = 0
+        self.spacing: Iterator[float] | None = clock.spacing
+        self.next_time: Callable[[float], float] = clock.next_time
         self.arrived = 0
         self.completed = 0
         self.abandoned = 0
         self.wait_sum = 0.0
-
-    def next_time(self, now: float) -> float:
-        """Time of the arrival after one at ``now`` (inf when there is none)."""
-        if self.rates:
-            return self._next_profile(now)
-        if self.spacing is not None:
-            return now + next(self.spacing)
-        i = self.trace_i
-        if i >= len(self.trace):
-            return INF
-        self.trace_i = i + 1
-        return self.trace[i]
-
-    def _next_profile(self, t: float) -> float:
-        # A Poisson process with a piecewise-constant rate, generated exactly: an exponential gap
-        # at the current interval's rate; if it overshoots the interval's end, restart from the
-        # boundary with the next rate (valid because the exponential is memoryless).
-        rates, n, i = self.rates, len(self.rates), self.interval
-        while i < n - 1:
-            end = (i + 1) * self.step
-            r = rates[i]
-            if r > 0:
-                c = t + next(self.gaps) / r
-                if c < end:
-                    self.interval = i
-                    return c
-            t, i = max(t, end), i + 1
-        self.interval = i
-        r = rates[-1]
-        return t + next(self.gaps) / r if r > 0 else INF
 
 
 class Net:
@@ -444,21 +414,8 @@ def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: 
 
     sources: dict[str, SourceState] = {}
     for s in scenario.sources.values():
-        ss = SourceState(s.name, places[s.into])
-        if s.trace is not None:
-            ss.trace = tuple(s.trace)
-        else:
-            rng = stream_rng(seed, replication, "arrivals", s.name)
-            if s.profile is not None:
-                ss.gaps = block_draws(lambda g, n: g.standard_exponential(n), rng, block)
-                ss.step, ss.rates = s.profile.step, tuple(s.profile.rates)
-            else:
-                # gap / rate divided by numpy a block at a time: IEEE division is correctly
-                # rounded in numpy as in Python, so every arrival time is the same float
-                ss.rate = s.rate
-                ss.spacing = block_draws(
-                    lambda g, n, rate=s.rate: g.standard_exponential(n) / rate, rng, block)
-        sources[s.name] = ss
+        clock = s.arrivals.clock(stream_rng(seed, replication, "arrivals", s.name), block)
+        sources[s.name] = SourceState(s.name, places[s.into], clock)
     net = Net(scenario, places, pools, [trans[n] for n in order], sources)
     _shortcuts(net)
     return net

@@ -200,8 +200,9 @@ def scenario_fingerprint(scenario: Scenario) -> str:
     doc.pop("run", None)
     files: dict[str, Any] = {}
     for name, src in scenario.sources.items():
-        if src.trace is not None:
-            files[f"sources.{name}"] = list(src.trace)
+        data = src.arrivals.file_data
+        if data is not None:
+            files[f"sources.{name}"] = list(data)
     for name, place in scenario.places.items():
         for part in ("hold", "patience"):
             values = getattr(getattr(place, part), "values", None)

@@ -173,7 +173,7 @@ def offered_rates(scenario: Scenario, horizon: float | None = None) -> tuple[dic
     n = len(open_places)
     lam = {p: 0.0 for p in places}
     for src in scenario.sources.values():
-        lam[src.into] += src.mean_rate(h)
+        lam[src.into] += src.arrivals.mean_rate(h)
     # x = λ + Pᵀx over the places whose jobs can end (P is then substochastic and I − Pᵀ regular)
     pt = np.zeros((n, n))
     for a, b, q, w in moves:

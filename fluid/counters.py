@@ -97,7 +97,7 @@ def _grid_times(scenario: Scenario) -> list[float]:
     """Times the step should divide: holds, schedule steps and profile steps."""
     times = _holds(scenario)
     times += [p.schedule.step for p in scenario.pools.values() if p.schedule is not None]
-    times += [s.profile.step for s in scenario.sources.values() if s.profile is not None]
+    times += [step for s in scenario.sources.values() for step in s.arrivals.steps]
     return times
 
 
@@ -177,17 +177,7 @@ def default_horizon(scenario: Scenario) -> float:
 
 
 def _source_counter(scenario: Scenario, name: str, t: np.ndarray) -> np.ndarray:
-    src = scenario.sources[name]
-    if src.rate is not None:
-        return src.rate * t
-    if src.profile is not None:
-        prof = src.profile
-        k = len(prof.rates)
-        ends = prof.step * np.arange(k + 1)
-        cum = np.concatenate([[0.0], np.cumsum(np.asarray(prof.rates) * prof.step)])
-        inside = np.interp(t, ends, cum)
-        return np.where(t > ends[-1], cum[-1] + prof.rates[-1] * (t - ends[-1]), inside)
-    return np.searchsorted(np.asarray(src.trace), t, side="right").astype(float)
+    return scenario.sources[name].arrivals.cumulative_grid(t)
 
 
 def _staff_on_grid(scenario, pool, t, staff, extra_staff) -> np.ndarray:

@@ -23,7 +23,6 @@ from .scenario import (
     FrozenMap,
     Place,
     Pool,
-    Profile,
     RunSettings,
     Scenario,
     Schedule,
@@ -32,6 +31,7 @@ from .scenario import (
     Targets,
     Transition,
 )
+from .sources import PoissonArrivals, ProfileArrivals, TraceArrivals
 from .validation import check_structure
 
 __all__ = [
@@ -434,7 +434,7 @@ def _build_source(name: str, spec: dict, base: Path) -> Source:
     if len(kinds) != 1:
         raise FieldError(path, "needs exactly one of rate, profile or trace")
     if "rate" in spec:
-        return Source(name, into, rate=_real(spec["rate"], f"{path}.rate", strict=True))
+        return Source(name, into, PoissonArrivals(_real(spec["rate"], f"{path}.rate", strict=True)))
     if "profile" in spec:
         prof = _mapping(spec["profile"], f"{path}.profile", allow_none=False)
         _known_keys(prof, ("step", "rates"), f"{path}.profile")
@@ -447,8 +447,8 @@ def _build_source(name: str, spec: dict, base: Path) -> Source:
         rates_t = tuple(_real(r, f"{path}.profile.rates[{i}]") for i, r in enumerate(rates))
         if not any(r > 0 for r in rates_t):
             raise FieldError(f"{path}.profile.rates", "needs at least one positive rate")
-        return Source(name, into, profile=Profile(step=step, rates=rates_t))
-    return Source(name, into, trace=_read_trace(spec["trace"], f"{path}.trace", base))
+        return Source(name, into, ProfileArrivals(step=step, rates=rates_t))
+    return Source(name, into, TraceArrivals(_read_trace(spec["trace"], f"{path}.trace", base)))
 
 
 def _read_trace(value: Any, path: str, base: Path) -> tuple[float, ...]:

@@ -95,13 +95,13 @@ def places_without_exit(scenario: Scenario) -> list[str]:
 def _arrival_rate(scenario: Scenario, source: str, arrival_rates: Mapping[str, float] | None):
     if arrival_rates is not None and source in arrival_rates:
         return float(arrival_rates[source])
-    src = scenario.sources[source]
-    if src.rate is None:
+    arrivals = scenario.sources[source].arrivals
+    if not arrivals.is_constant:
         raise ValueError(
-            f"source {source!r} has a {src.kind}: the throughput LP needs constant rates "
+            f"source {source!r} has a {arrivals.kind}: the throughput LP needs constant rates "
             "(give arrival_rates or use the counter equations)"
         )
-    return float(src.rate)
+    return float(arrivals.rate_at(0.0))
 
 
 def _staff(scenario: Scenario, pool: str, staff: Mapping[str, float] | None) -> float:

@@ -102,7 +102,7 @@ def grid_diagram(scenario: Scenario, axes: tuple[str, ...], of: tuple[str, ...],
                                      rate=float(rate), limiting=tuple(limiting)))
     reasons = [why for why, holds in (
         ("priorities", scenario.has_priorities),
-        ("arrival profiles or traces", any(s.rate is None for s in scenario.sources.values())),
+        ("arrival profiles or traces", any(not s.arrivals.is_constant for s in scenario.sources.values())),
         ("schedules", any(p.schedule is not None for p in scenario.pools.values())),
         ("jobs that can never end", bool(places_without_exit(scenario)))) if holds]
     notes = [f"the throughput LP does not apply ({', '.join(reasons)}): rates come from the "

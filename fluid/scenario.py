@@ -16,11 +16,11 @@ from functools import cached_property
 from typing import Any, Iterator, Mapping
 
 from .distributions import Distribution
+from .sources import Arrivals
 
 __all__ = [
     "FrozenMap",
     "RunSettings",
-    "Profile",
     "Source",
     "Schedule",
     "Pool",
@@ -77,64 +77,14 @@ class RunSettings:
 
 
 @dataclass(frozen=True)
-class Profile:
-    """A piecewise-constant arrival rate: ``rates[i]`` on ``[i*step, (i+1)*step)``; the last value
-    holds after the end."""
-
-    step: float
-    rates: tuple[float, ...]
-
-    def rate_at(self, t: float) -> float:
-        i = int(t // self.step)
-        return self.rates[min(max(i, 0), len(self.rates) - 1)]
-
-    def cumulative(self, t: float) -> float:
-        """Expected arrivals in ``[0, t]``: the integral of the rate."""
-        if t <= 0:
-            return 0.0
-        full = int(t // self.step)
-        total = 0.0
-        for i in range(min(full, len(self.rates))):
-            total += self.rates[i] * self.step
-        if full >= len(self.rates):
-            total += self.rates[-1] * (t - len(self.rates) * self.step)
-        else:
-            total += self.rates[full] * (t - full * self.step)
-        return total
-
-
-@dataclass(frozen=True)
 class Source:
-    """Exogenous arrivals into one place: Poisson at ``rate``, a Poisson process with a
-    piecewise-constant ``profile``, or the fixed arrival times of a ``trace``."""
+    """Exogenous arrivals into one place. ``arrivals`` is the arrival process, one of
+    :class:`~fluid.sources.PoissonArrivals`, :class:`~fluid.sources.ProfileArrivals` or
+    :class:`~fluid.sources.TraceArrivals`; ask it, not which kind it is."""
 
     name: str
     into: str
-    rate: float | None = None
-    profile: Profile | None = None
-    trace: tuple[float, ...] | None = None
-
-    @property
-    def kind(self) -> str:
-        if self.rate is not None:
-            return "poisson"
-        return "profile" if self.profile is not None else "trace"
-
-    def cumulative(self, t: float) -> float:
-        """Arrivals expected (rate, profile) or recorded (trace) in ``[0, t]``."""
-        if self.rate is not None:
-            return self.rate * max(t, 0.0)
-        if self.profile is not None:
-            return self.profile.cumulative(t)
-        import bisect
-
-        return float(bisect.bisect_right(self.trace, t))
-
-    def mean_rate(self, horizon: float) -> float:
-        """Average arrival rate over ``[0, horizon]``."""
-        if self.rate is not None:
-            return self.rate
-        return self.cumulative(horizon) / horizon
+    arrivals: Arrivals
 
 
 @dataclass(frozen=True)
@@ -311,7 +261,7 @@ class Scenario:
     @property
     def has_time_variation(self) -> bool:
         """True when a source has a profile or trace or a pool has a schedule."""
-        return any(s.rate is None for s in self.sources.values()) or any(
+        return any(not s.arrivals.is_constant for s in self.sources.values()) or any(
             p.schedule is not None for p in self.pools.values()
         )
 

@@ -43,6 +43,7 @@ from .errors import SolverError
 from .invariants import pool_invariants
 from .lp import places_without_exit, throughput_lp
 from .scenario import FrozenMap, Scenario, with_changes
+from .sources import PoissonArrivals
 
 __all__ = ["FluidPlan", "fluid_plan", "offered_work", "with_staff", "plan_view"]
 
@@ -148,8 +149,7 @@ def plan_view(scenario: Scenario) -> Scenario:
     :func:`dataclasses.replace` and not validated again, so it is not meant to be simulated or
     saved."""
     h = scenario.run.horizon
-    sources = {n: (s if s.rate is not None
-                   else replace(s, rate=s.mean_rate(h), profile=None, trace=None))
+    sources = {n: replace(s, arrivals=PoissonArrivals(s.arrivals.mean_rate(h)))
                for n, s in scenario.sources.items()}
     places = {}
     for n, p in scenario.places.items():
@@ -230,7 +230,7 @@ def fluid_plan(scenario: Scenario, *, costs: Mapping[str, float] | None = None) 
     costs = _costs(scenario, costs)
     h = scenario.run.horizon
     rates, _ = offered_rates(scenario, h)
-    lam = {s: src.mean_rate(h) for s, src in scenario.sources.items()}
+    lam = {s: src.arrivals.mean_rate(h) for s, src in scenario.sources.items()}
     _check_flows(scenario, rates, lam)
 
     pools, trans, srcs = list(scenario.pools), list(scenario.transitions), list(scenario.sources)
@@ -278,7 +278,7 @@ def fluid_plan(scenario: Scenario, *, costs: Mapping[str, float] | None = None) 
                      "and each must reach its inflow-driven rate anyway; at a job place with a "
                      "priority every job goes to its highest-priority output (re-checked with the "
                      "counter equations where a pool has a priority)")
-    if any(s.rate is None for s in scenario.sources.values()):
+    if any(not s.arrivals.is_constant for s in scenario.sources.values()):
         notes.append(f"arrival profiles and traces count at their mean rate over the horizon "
                      f"({h:g} {scenario.time_unit}); staffing per interval is not done")
     if any(p.schedule is not None for p in scenario.pools.values()):

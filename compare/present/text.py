@@ -33,12 +33,7 @@ def describe_dist(d: Any) -> str:
 
 
 def _source_text(src) -> str:
-    if src.kind == "poisson":
-        return f"Poisson {fmt(src.rate)}"
-    if src.kind == "profile":
-        p = src.profile
-        return f"profile step {fmt(p.step)}, {len(p.rates)} rates, {fmt(min(p.rates))}..{fmt(max(p.rates))}"
-    return f"trace, {len(src.trace)} arrivals"
+    return src.arrivals.describe(fmt)
 
 
 def _pool_text(pool) -> str:
@@ -102,8 +97,9 @@ def inspect_json(s: Scenario, invariants: list[dict], uncovered: list[str]) -> d
         "scenario": s.name,
         "file": s.file,
         "time_unit": s.time_unit,
-        "sources": {n: {"kind": src.kind, "into": src.into,
-                        "mean_rate": src.mean_rate(s.run.horizon)} for n, src in s.sources.items()},
+        "sources": {n: {"kind": src.arrivals.kind, "into": src.into,
+                        "mean_rate": src.arrivals.mean_rate(s.run.horizon)}
+                    for n, src in s.sources.items()},
         "pools": {n: {"staff": p.staff, "priority": list(p.priority),
                       "schedule": None if p.schedule is None else
                       {"step": p.schedule.step, "staff": list(p.schedule.staff)},

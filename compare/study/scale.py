@@ -37,7 +37,7 @@ import pandas as pd
 
 from desim import SimulationSettings, resolve_settings
 from fluid.analysis import throughput
-from fluid.errors import ScenarioError
+from fluid.errors import FieldError, ScenarioError
 from fluid.scenario import Scenario, with_changes
 
 from .comparison import with_window
@@ -65,14 +65,11 @@ def scale_scenario(scenario: Scenario, factor: float) -> tuple[Scenario, tuple[s
     changes: dict = {}
     notes: list[str] = []
     for name, src in scenario.sources.items():
-        if src.trace is not None:
-            raise ScenarioError(scenario.file, f"sources.{name}",
-                                "a trace source cannot be scaled (its arrival times are fixed); "
-                                "give it a rate or a profile for a scale study")
-        if src.rate is not None:
-            changes[f"sources.{name}.rate"] = src.rate * factor
-        else:
-            changes[f"sources.{name}.profile.rates"] = [r * factor for r in src.profile.rates]
+        try:
+            scaled = src.arrivals.scaled(factor)
+        except FieldError as exc:  # a trace: its recorded arrival times are fixed
+            raise ScenarioError(scenario.file, f"sources.{name}", exc.message) from None
+        changes |= {f"sources.{name}.{field}": v for field, v in scaled.rate_fields().items()}
     for name, pool in scenario.pools.items():
         spec = doc["pools"][name]
         if pool.schedule is not None:

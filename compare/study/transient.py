@@ -53,7 +53,7 @@ _SLACK = 1e-9
 def default_interval(scenario: Scenario, horizon: float) -> float:
     """Interval length for the per-interval comparison: the shortest profile or schedule step;
     with only traces (or nothing time-varying), a twentieth of ``horizon``."""
-    steps = [s.profile.step for s in scenario.sources.values() if s.profile is not None]
+    steps = [step for s in scenario.sources.values() for step in s.arrivals.steps]
     steps += [p.schedule.step for p in scenario.pools.values() if p.schedule is not None]
     return float(min(steps)) if steps else float(horizon) / 20.0
 

@@ -113,7 +113,7 @@ def test_profiles_and_schedules_count_at_their_means():
     # By hand: the profile's mean over its 720-minute horizon × hold (5.5 + 0.15 × 1 min of
     # wrap-up per call) is the offered work; the plan rounds it up
     s = load_scenario(ROOT / "configs" / "day-with-shifts.yaml")
-    mean_rate = sum(s.sources["calls"].profile.rates) * 30 / 720
+    mean_rate = sum(s.sources["calls"].arrivals.rates) * 30 / 720
     work = mean_rate * (5.5 + 0.15 * 1.0)
     plan = fluid_plan(s)
     assert plan.work["agents"] == pytest.approx(work)

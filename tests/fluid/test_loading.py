@@ -86,15 +86,15 @@ def test_scenario_is_frozen_and_variants_are_copies():
     with pytest.raises(TypeError):
         s.pools["agents"] = 4
     v = with_changes(s, {"pools.agents": 5, "sources.calls.rate": 2.0})
-    assert v.pools["agents"].staff == 5 and v.sources["calls"].rate == 2.0
-    assert s.pools["agents"].staff == 3 and s.sources["calls"].rate == 1.0
+    assert v.pools["agents"].staff == 5 and v.sources["calls"].arrivals.rate == 2.0
+    assert s.pools["agents"].staff == 3 and s.sources["calls"].arrivals.rate == 1.0
 
 
 def test_set_overrides_parse_yaml_scalars_and_keep_long_form_pools():
     s = load_scenario_text(BASE, overrides=["pools.agents=4", "sources.calls.rate=2.5",
                                             "places.queue.patience={dist: exponential, mean: 9}"])
     assert s.pools["agents"].staff == 4
-    assert s.sources["calls"].rate == 2.5
+    assert s.sources["calls"].arrivals.rate == 2.5
     assert s.places["queue"].patience.mean == 9
     text = BASE.replace("agents: 3", "agents: {staff: 3}")
     assert load_scenario_text(text, overrides=["pools.agents=7"]).pools["agents"].staff == 7
@@ -205,7 +205,7 @@ def test_trace_source_reads_relative_file(tmp_path):
     doc["sources"]["calls"] = {"trace": "arrivals.csv", "into": "queue"}
     (tmp_path / "s.yaml").write_text(yaml.safe_dump(doc))
     s = load_scenario(tmp_path / "s.yaml")
-    assert s.sources["calls"].trace == (0.5, 1.25, 3.0)
+    assert s.sources["calls"].arrivals.times == (0.5, 1.25, 3.0)
     (tmp_path / "arrivals.csv").write_text("2\n1\n")
     with pytest.raises(ScenarioError, match="earlier than the line before"):
         load_scenario(tmp_path / "s.yaml")
@@ -216,7 +216,7 @@ def test_profile_and_schedule():
     doc["sources"]["calls"] = {"profile": {"step": 30, "rates": [1.0, 2.0]}, "into": "queue"}
     doc["pools"]["agents"] = {"schedule": {"step": 60, "staff": [2, 4]}}
     s = load_doc(doc)
-    src = s.sources["calls"]
+    src = s.sources["calls"].arrivals
     # integral of the piecewise-constant rate, by hand: 30*1 + 30*2 + 40*2 (last value holds)
     assert src.cumulative(100) == pytest.approx(30 + 60 + 80)
     assert s.pools["agents"].staff == 2 and s.pools["agents"].staff_at(61) == 4

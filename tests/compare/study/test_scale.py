@@ -24,7 +24,7 @@ def test_scaling_the_demo_doubles_rates_and_staff():
     s = load_scenario(DEMO)
     s2, notes = scale_scenario(s, 2)
     assert notes == ()
-    assert s2.sources["calls"].rate == 8.0
+    assert s2.sources["calls"].arrivals.rate == 8.0
     assert {p: s2.pools[p].staff for p in s2.pools} == {"front_desk": 28, "supervisors": 4,
                                                         "billing_desk": 16}
     assert s2.pools["billing_desk"].priority == ("billing_answer", "callback_start")
@@ -47,8 +47,8 @@ def test_staff_rounding_is_reported():
 def test_profiles_and_schedules_are_scaled():
     s = load_scenario(ROOT / "configs" / "day-with-shifts.yaml")
     s3, _ = scale_scenario(s, 3)
-    assert s3.sources["calls"].profile.rates == pytest.approx(
-        [3 * r for r in s.sources["calls"].profile.rates])
+    assert s3.sources["calls"].arrivals.rates == pytest.approx(
+        [3 * r for r in s.sources["calls"].arrivals.rates])
     staff = s.pools["agents"].schedule.staff
     assert s3.pools["agents"].schedule.staff == tuple(3 * x for x in staff)
 
