@@ -84,7 +84,7 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
               interval: float | None = None, max_jobs: int | None = None,
               progress: Callable[[], object] | None = None,
               record_waits: bool = False, out: str | os.PathLike | None = None,
-              resume: bool = False) -> SimulationResult:
+              resume: bool = False, shortcuts: bool = True) -> SimulationResult:
     """Simulate ``reps`` independent replications of ``scenario`` over [0, horizon], measure each
     over [warmup, horizon] and return estimates with 95 % Student t intervals.
 
@@ -101,6 +101,9 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
     must be new or empty. ``resume``: reuse the replications already saved in ``out`` (same
     scenario and settings, else :class:`desim.store.StoreError`) and run only the missing ones;
     the numbers are identical to an uninterrupted run.
+
+    ``shortcuts``: let the engine use its shortcuts (the default); False runs the general firing
+    logic alone (see :func:`desim.net.build_net`). The numbers are the same either way.
     """
     run = scenario.run
     reps = run.replications if reps is None else int(reps)
@@ -121,9 +124,11 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
         for _ in saved:
             progress()
     todo = [r for r in range(reps) if r not in saved]
+    # (shortcuts change no number, so they are no setting of the run directory: a run saved
+    # with them can be resumed without them)
     runs = run_replications(scenario, todo, executor=executor, workers=workers,
                             progress=progress, on_result=None if store is None else store.save,
-                            **settings) if todo else []
+                            shortcuts=shortcuts, **settings) if todo else []
     runs = sorted([*saved.values(), *runs], key=lambda r: r.replication)
     result = summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
                        steady_state=not scenario.has_time_variation)
