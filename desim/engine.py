@@ -30,7 +30,11 @@ order, same floating-point sums): when nothing is pending and no other event sha
 a token that becomes available is offered to the one transition its FIFO feeds
 (:meth:`Engine._offer`), and taken without entering the FIFO when it can be
 (:meth:`Engine._take_at_once`, inline in :meth:`Engine.run` for the end of a hold and for an
-arrival into a queue served by one pool). Job objects are reused once their job has ended.
+arrival into a queue served by one pool). Every shortcut is guarded by a fact that
+:func:`desim.net.build_net` precomputes; a net built with ``shortcuts=False`` has none of them,
+so the same loop then takes its general branches alone (:meth:`Engine._available` or
+:meth:`Engine._enter`, then :meth:`Engine._settle`), which the tests compare against the
+shortcuts. Job objects are reused once their job has ended.
 
 All times are in the scenario's time unit.
 """
@@ -99,6 +103,9 @@ class Engine:
     default) records nothing. ``records``: a list collecting job records ``(id, source, arrival,
     end, outcome)`` with outcome ``"completed:<transition>"`` or ``"abandoned:<place>"``, or None.
     ``warmup``: waits are recorded (with ``record_waits`` nets) from this time on.
+
+    The shortcuts are switched by the net (``build_net(..., shortcuts=False)``): without them
+    every token goes through the general firing logic; the results are identical.
     """
 
     def __init__(self, net: Net, *, max_jobs: int = 1_000_000, trace: list | None = None,
@@ -367,7 +374,9 @@ class Engine:
 
     def _offer(self, place: PlaceState, fifo, job: Job, now: float) -> None:
         """``job`` becomes available while nothing is pending and no other event shares this
-        instant: :meth:`_available` then :meth:`_settle`, trying only what can have changed."""
+        instant: :meth:`_available` then :meth:`_settle`, trying only what can have changed.
+        Without ``fifo.single`` (several takers, or a net without shortcuts) it is exactly
+        those two calls."""
         t = fifo.single
         if t is None:
             self.pending = self._available(place, fifo, job, now)

@@ -12,7 +12,9 @@ rank first, one firing at a time, so a higher-priority transition never loses a 
 one at the same instant.
 
 :func:`build_net` also precomputes the facts the engine's shortcuts read (which FIFO feeds one
-transition only, which pool one transition only takes from, ...): see :func:`_shortcuts`.
+transition only, which pool one transition only takes from, ...): see :func:`_shortcuts`. With
+``shortcuts=False`` it leaves them unset, and the engine executes the net by its general firing
+logic alone, with identical results (a reference for tests).
 """
 
 from __future__ import annotations
@@ -73,10 +75,10 @@ class Fifo:
         self.dead = 0
         self.place = place
         self.mask = mask  # bits of the transitions that take from this FIFO
-        # Set by build_net (see _shortcuts): the only transition taking from this FIFO; the same
-        # when it takes no agents (`direct`) or agents from one pool (`quick`) and the place
-        # has neither patience nor route, so that a token that becomes available while nothing
-        # else is pending can be taken at once, without entering the FIFO.
+        # Set by build_net (see _shortcuts; None without shortcuts): the only transition taking
+        # from this FIFO; the same when it takes no agents (`direct`) or agents from one pool
+        # (`quick`) and the place has neither patience nor route, so that a token that becomes
+        # available while nothing else is pending can be taken at once, without entering the FIFO.
         self.single: TransitionState | None = None
         self.direct: TransitionState | None = None
         self.quick: TransitionState | None = None
@@ -117,6 +119,7 @@ class PlaceState:
         self.armed_at = INF  # time of the one patience timer that counts
         self.gen = 0  # generation of that timer; older timers see a different number
         self.stale_timers = 0  # superseded patience timers still in the event queue
+        # (these two are shortcut facts, see _shortcuts; None in a net without shortcuts)
         self.plain: Fifo | None = None  # the FIFO, when the place has neither hold nor route
         self.held: Fifo | None = None  # the FIFO, when the place has a hold but no route
         self.n_avail = 0
@@ -195,7 +198,7 @@ class PoolState:
         self.plast = 0.0
         self.mask = 0
         self.takers: tuple = ()  # (FIFO, bit) of each transition taking agents from this pool
-        self.taker: Fifo | None = None  # the FIFO of the only such transition, if one
+        self.taker: Fifo | None = None  # the FIFO of the only such transition (a shortcut fact)
         self.schedule = schedule
 
     def give(self, w: int, now: float) -> int:
@@ -264,9 +267,10 @@ class TransitionState:
         self.out_place: PlaceState | None = None
         self.gives: tuple = ()  # ((PoolState, weight), ...)
         self.fired = 0  # firings, but those counted by the FIFO (Fifo.at_once)
-        self.take1: PoolState | None = None  # the pool and weight when it takes from one pool
+        # shortcut facts (see _shortcuts): the pool and weight when it takes from one pool, ...
+        self.take1: PoolState | None = None
         self.weight1 = 0
-        self.give1: PoolState | None = None  # the pool and weight when it gives to one pool
+        self.give1: PoolState | None = None  # ... and when it gives to one pool
         self.given1 = 0
 
     @property
@@ -301,14 +305,15 @@ class SourceState:
 class Net:
     """All run-time state of one run's net, in declaration order."""
 
-    __slots__ = ("places", "pools", "transitions", "sources", "scenario")
+    __slots__ = ("places", "pools", "transitions", "sources", "scenario", "shortcuts")
 
-    def __init__(self, scenario, places, pools, transitions, sources):
+    def __init__(self, scenario, places, pools, transitions, sources, shortcuts: bool = True):
         self.scenario = scenario
         self.places: dict[str, PlaceState] = places
         self.pools: dict[str, PoolState] = pools
         self.transitions: list[TransitionState] = transitions  # by rank
         self.sources: dict[str, SourceState] = sources
+        self.shortcuts = shortcuts  # whether the facts of _shortcuts were set
 
 
 def transition_order(scenario: Scenario) -> list[str]:
@@ -358,8 +363,13 @@ def transition_order(scenario: Scenario) -> list[str]:
 
 
 def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: bool = False,
-              block: int = 1024) -> Net:
-    """Fresh run-time state for replication ``replication`` of ``scenario`` with base ``seed``."""
+              block: int = 1024, shortcuts: bool = True) -> Net:
+    """Fresh run-time state for replication ``replication`` of ``scenario`` with base ``seed``.
+
+    ``shortcuts``: precompute the facts the engine's shortcuts read (:func:`_shortcuts`; the
+    default). False leaves every one of them unset, so that :class:`desim.engine.Engine` takes
+    its general path alone (each token made available in its FIFO, then the enabled transitions
+    fired in rank order); the results are the same either way, to the last bit."""
     places: dict[str, PlaceState] = {}
     for p in scenario.places.values():
         ps = PlaceState(p.name)
@@ -416,8 +426,12 @@ def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: 
     for s in scenario.sources.values():
         clock = s.arrivals.clock(stream_rng(seed, replication, "arrivals", s.name), block)
         sources[s.name] = SourceState(s.name, places[s.into], clock)
-    net = Net(scenario, places, pools, [trans[n] for n in order], sources)
-    _shortcuts(net)
+    net = Net(scenario, places, pools, [trans[n] for n in order], sources, shortcuts)
+    for pool in net.pools.values():  # read by PoolState.give, on every path
+        pool.takers = tuple((t.fifo, t.bit) for t in net.transitions
+                            if any(r is pool for r, _ in t.takes))
+    if shortcuts:
+        _shortcuts(net)
     return net
 
 
@@ -426,7 +440,10 @@ def _shortcuts(net: Net) -> None:
 
     When nothing is pending (every transition is disabled) and a token becomes available in a
     FIFO that feeds one transition, only that transition can have become enabled, and only if
-    the FIFO was empty: the engine then tries it alone instead of settling the whole net."""
+    the FIFO was empty: the engine then tries it alone instead of settling the whole net.
+
+    Every fact set here is read by a shortcut only: left at its default (None), it makes the
+    engine take the general path at that point."""
     for place in net.places.values():
         plain = place.route_cum is None
         place.plain = place.fifo if plain and place.hold is None else None
@@ -444,6 +461,4 @@ def _shortcuts(net: Net) -> None:
                 fifo.direct = t if not t.takes else None
                 fifo.quick = t if t.take1 is not None else None
     for pool in net.pools.values():
-        pool.takers = tuple((t.fifo, t.bit) for t in net.transitions
-                            if any(r is pool for r, _ in t.takes))
         pool.taker = pool.takers[0][0] if len(pool.takers) == 1 else None

@@ -85,7 +85,7 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
               interval: float | None = None, max_jobs: int | None = None,
               progress: Callable[[], object] | None = None,
               record_waits: bool = False, out: str | os.PathLike | None = None,
-              resume: bool = False,
+              resume: bool = False, shortcuts: bool = True,
               settings: SimulationSettings | None = None) -> SimulationResult:
     """Simulate ``reps`` independent replications of ``scenario`` over [0, horizon], measure each
     over [warmup, horizon] and return estimates with 95 % Student t intervals.
@@ -106,6 +106,9 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
     scenario and settings, else :class:`desim.store.StoreError`) and run only the missing ones;
     the numbers are identical to an uninterrupted run. Bad settings raise
     :class:`desim.SettingsError` (a ValueError) naming the setting.
+
+    ``shortcuts``: let the engine use its shortcuts (the default); False runs the general firing
+    logic alone (see :func:`desim.net.build_net`). The numbers are the same either way.
     """
     cfg = resolve_settings(scenario.run, settings, reps=reps, horizon=horizon, warmup=warmup,
                            seed=seed, executor=executor, workers=workers, interval=interval,
@@ -120,9 +123,11 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
         for _ in saved:
             progress()
     todo = [r for r in range(reps) if r not in saved]
+    # (shortcuts change no number, so they are no setting of the run directory: a run saved
+    # with them can be resumed without them)
     runs = run_replications(scenario, todo, executor=cfg.executor, workers=cfg.workers,
                             progress=progress, on_result=None if store is None else store.save,
-                            **run_settings) if todo else []
+                            shortcuts=shortcuts, **run_settings) if todo else []
     runs = sorted([*saved.values(), *runs], key=lambda r: r.replication)
     result = summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
                        steady_state=not scenario.has_time_variation)

@@ -217,7 +217,8 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
                     warmup: float | None = None, seed: int | None = None,
                     interval: float | None = None, max_jobs: int | None = None,
                     record_waits: bool = False, record_jobs: bool = False,
-                    trace: list | None = None, samples: int = DEFAULT_SAMPLES) -> RunResult:
+                    trace: list | None = None, samples: int = DEFAULT_SAMPLES,
+                    shortcuts: bool = True) -> RunResult:
     """Run replication ``replication`` of ``scenario`` over [0, horizon] and measure it over
     [warmup, horizon] (times in the scenario's time unit; None takes ``scenario.run``).
 
@@ -225,7 +226,9 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
     allowed inside at once (default :data:`DEFAULT_MAX_JOBS`); beyond it the run stops there and is
     flagged unstable. ``record_waits`` keeps per-token waits, ``record_jobs`` the job records.
     ``trace``: a list that receives ``(time, what, name, job_id)`` for every arrival, firing and
-    abandonment (see :class:`desim.engine.Engine`). Raises
+    abandonment (see :class:`desim.engine.Engine`). ``shortcuts``: let the engine use its
+    shortcuts (the default); False runs the general firing logic alone, with identical results
+    and trace, only slower (see :func:`desim.net.build_net`). Raises
     :class:`desim.engine.ConservationError` if the run's job count does not balance.
     """
     run = scenario.run
@@ -235,7 +238,7 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
     max_jobs = DEFAULT_MAX_JOBS if max_jobs is None else int(max_jobs)
     check_settings(horizon, warmup, interval, max_jobs)
 
-    net = build_net(scenario, seed, replication, record_waits=record_waits)
+    net = build_net(scenario, seed, replication, record_waits=record_waits, shortcuts=shortcuts)
     jobs: list | None = [] if record_jobs else None
     engine = Engine(net, max_jobs=max_jobs, trace=trace, records=jobs, warmup=warmup)
     engine.start()
