@@ -39,10 +39,11 @@ import pandas as pd
 from desim import replicate
 from fluid.analysis import throughput
 from fluid.errors import ScenarioError
-from fluid.scenario import Scenario, with_changes
+from fluid.loading import with_changes
+from fluid.scenario import Scenario
 
 from .core import resolve_settings, with_window
-from .gaps import fluid_abandonment, fluid_places, simulated_abandonment, simulated_output
+from .gaps import fluid_abandonment, fluid_places, simulated_output
 
 __all__ = ["GAP_METRICS", "ScaleFit", "ScaleResult", "fit_exponent", "scale_scenario",
            "scale_study"]
@@ -221,7 +222,7 @@ def scale_study(scenario: Scenario, factors: Sequence[float] = (1, 2, 4, 8, 16),
 
         places = fluid_places(scaled, fluid)
         f_ab = fluid_abandonment(scaled, places, fluid) if with_patience else math.nan
-        ab = simulated_abandonment(sim)
+        ab = sim.overall_abandonment()
         worst, worst_q = math.nan, ""
         for q, rate in fluid.rates.items():
             if rate > 0:

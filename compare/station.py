@@ -52,8 +52,8 @@ from typing import Any, Callable
 import pandas as pd
 
 from desim import Estimate, SimulationResult, replicate
-from fluid.loading import load_scenario_text
-from fluid.scenario import Scenario, with_changes
+from fluid.loading import load_scenario_text, with_changes
+from fluid.scenario import Scenario
 
 from .erlang import erlang_a_queue, erlang_b_loss, erlang_c_queue
 from .priority import cobham_waits
