@@ -28,6 +28,7 @@ import numpy as np
 
 from fluid.scenario import Scenario
 from fluid.sources import ArrivalClock
+from fluid.structure import route_share
 
 from .streams import block_draws, stream_rng, uniform_draws
 
@@ -400,7 +401,8 @@ def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: 
         if p.route is not None:
             chosen = list(p.route)
             ps.fifos = [Fifo(ps, bit[t]) for t in chosen]
-            ps.route_cum = list(np.cumsum([p.route[t] for t in chosen])[:-1].tolist())
+            shares = [route_share(scenario, p.name, t) for t in chosen]
+            ps.route_cum = list(np.cumsum(shares)[:-1].tolist())
             ps.route_draw = uniform_draws(stream_rng(seed, replication, "route", p.name), block)
             for t, f in zip(chosen, ps.fifos):
                 trans[t].fifo = f

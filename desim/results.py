@@ -62,6 +62,7 @@ class SimulationResult:
     :class:`Estimate`. ``intervals``: tidy per-interval table (columns interval, start, end,
     metric, name, mean, low, high, n) or None. ``unstable``: per-replication flags of runs stopped
     at the job limit; ``unstable_replications`` their count. ``runs``: the per-replication results.
+    :meth:`overall_abandonment`: the abandonment share over all sources.
     """
 
     scenario_name: str
@@ -87,6 +88,21 @@ class SimulationResult:
     def raw(self, kind: str, name: str, metric: str) -> np.ndarray:
         """Per-replication values of one figure, in replication order (nan where unmeasured)."""
         return np.array([r.values().get((kind, name, metric), math.nan) for r in self.runs])
+
+    def overall_abandonment(self) -> Estimate:
+        """The simulated abandonment share over all sources: per replication, the jobs that
+        abandoned in the window over the jobs that ended in it, Σ abandoned / Σ (completed +
+        abandoned) over the sources (nan for a replication where no job ended), as an
+        :class:`~desim.estimate.Estimate`. (Each source's own share is its
+        ``abandoned_share``.)"""
+        names = list(self.sources)
+        if not names:
+            return Estimate.from_values([])
+        ab = np.sum([self.raw("source", s, "abandoned") for s in names], axis=0)
+        done = np.sum([self.raw("source", s, "completed") for s in names], axis=0)
+        ended = ab + done
+        share = np.where(ended > 0, ab / np.where(ended > 0, ended, 1.0), np.nan)
+        return Estimate.from_values(share)
 
     def per_replication(self) -> pd.DataFrame:
         """Tidy table of every per-replication figure: replication, kind, name, metric, value."""

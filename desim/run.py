@@ -33,13 +33,13 @@ import numpy as np
 import pandas as pd
 
 from fluid.scenario import Scenario
+from fluid.structure import waiting_places
 
 from .engine import Engine
 from .net import Net, build_net
 from .warmup import MserResult, mser5
 
-__all__ = ["RunResult", "run_replication", "DEFAULT_MAX_JOBS", "DEFAULT_SAMPLES", "check_settings",
-           "waiting_places"]
+__all__ = ["RunResult", "run_replication", "DEFAULT_MAX_JOBS", "DEFAULT_SAMPLES", "check_settings"]
 
 #: Jobs allowed inside at once before a run is declared unstable (about 0.3 GB per run).
 DEFAULT_MAX_JOBS = 1_000_000
@@ -103,18 +103,6 @@ def check_settings(horizon: float, warmup: float, interval: float | None = None,
 
     SimulationSettings(replications=1, horizon=horizon, warmup=warmup, seed=0,
                        interval=interval, max_jobs=max_jobs).with_changes()
-
-
-def waiting_places(scenario: Scenario) -> tuple[str, ...]:
-    """Places where jobs wait for staff or may abandon: a patience, a service target, or an output
-    transition that takes agents from a pool."""
-    out = []
-    for p in scenario.places.values():
-        takes_pool = any(any(n in scenario.pools for n in scenario.transitions[t].inputs)
-                         for t in scenario.outputs_of(p.name))
-        if p.patience is not None or p.name in scenario.targets.service or takes_pool:
-            out.append(p.name)
-    return tuple(out)
 
 
 def _snapshot(net: Net, now: float) -> np.ndarray:

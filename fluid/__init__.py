@@ -6,8 +6,8 @@ Public API: :func:`load_scenario`, :func:`load_scenario_text`, :class:`Scenario`
 
 from .analysis import FluidResult, throughput
 from .errors import ScenarioError, SolverError
-from .loading import ScenarioWarning, load_scenario, load_scenario_text
-from .scenario import Scenario, with_changes
+from .loading import ScenarioWarning, load_scenario, load_scenario_text, with_changes
+from .scenario import Scenario
 
 __all__ = [
     "FluidResult",

@@ -1,7 +1,8 @@
 """Fluid answers for a scenario: throughput, bottlenecks and loads (design.md §4.1).
 
-:func:`throughput` picks the method: the throughput LP (:mod:`fluid.lp`) when the net has no
-priorities, every source is Poisson and no pool has a schedule; otherwise the counter equations
+:func:`throughput` picks the method: the throughput LP (:mod:`fluid.lp`) when it applies
+(:func:`fluid.structure.lp_applies`: no priorities, every source Poisson, no schedule, every job
+can end); otherwise the counter equations
 integrated on a grid (:mod:`fluid.counters`). With the LP the counters are also run, on a coarser
 budget, as a cross-check (``cross_check``: the largest relative difference of a transition rate).
 
@@ -18,20 +19,16 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-import numpy as np
-
 from .counters import MAX_POINTS, CounterSolution, integrate_counters
-from .invariants import pool_invariants
-from .lp import places_without_exit, throughput_lp
+from .lp import throughput_lp
+from .offered import offered_rates, pool_loads
 from .scenario import Scenario
+from .structure import (bottlenecks, counter_output_level, lp_applies, output_transitions,
+                        statistics_window)
 
-__all__ = ["FluidResult", "throughput", "offered_rates", "pool_loads"]
+__all__ = ["FluidResult", "throughput"]
 
 CROSS_CHECK_POINTS = 20_000
-# A pool is a bottleneck when one more agent raises the output by more than this (relative);
-# the counters' long-run slopes are exact to about 1e-9 once periodic, 1e-6 while converging
-RISE_TOLERANCE = 1e-7
-COUNTER_RISE_TOLERANCE = 1e-6
 
 
 @dataclass(frozen=True)
@@ -137,126 +134,23 @@ def _clean(d: dict[str, float]) -> dict[str, float | None]:
     return {k: _num(v) for k, v in d.items()}
 
 
-# --- offered work and loads ----------------------------------------------------------------------
-
-
-def _share(scenario: Scenario, place: str, transition: str) -> float:
-    """Share of the jobs entering ``place`` that leave by ``transition`` when no pool limits."""
-    order = scenario.priority_order(place)
-    if order:
-        # with every pool unlimited the highest priority takes every job as it becomes available
-        return 1.0 if order[0] == transition else 0.0
-    return scenario.proportion(place, transition)
-
-
-def offered_rates(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
-    """Inflow-driven rates: ``(transition rates, job-place inflows)`` per time unit, as if every
-    pool were unlimited. Sources with a profile or trace count at their mean rate over
-    ``horizon`` (default: the scenario's run horizon). A place whose jobs can never end (every
-    path from it leads back into a circuit of places) has an unbounded inflow, reported as
-    ``inf``, as soon as any job reaches it."""
-    h = scenario.run.horizon if horizon is None else horizon
-    places = list(scenario.places)
-    moves = [(scenario.job_input(q), scenario.job_output(q), q) for q in scenario.transitions]
-    moves = [(a, b, q, _share(scenario, a, q)) for a, b, q in moves]
-    # places from which some job can still end (backwards from the ending transitions)
-    can_end = {a for a, b, q, w in moves if b is None and w > 0}
-    grew = True
-    while grew:
-        grew = False
-        for a, b, q, w in moves:
-            if w > 0 and b in can_end and a not in can_end:
-                can_end.add(a)
-                grew = True
-    open_places = [p for p in places if p in can_end]
-    idx = {p: i for i, p in enumerate(open_places)}
-    n = len(open_places)
-    lam = {p: 0.0 for p in places}
-    for src in scenario.sources.values():
-        lam[src.into] += src.arrivals.mean_rate(h)
-    # x = λ + Pᵀx over the places whose jobs can end (P is then substochastic and I − Pᵀ regular)
-    pt = np.zeros((n, n))
-    for a, b, q, w in moves:
-        if a in idx and b in idx:
-            pt[idx[b], idx[a]] += w
-    x = np.linalg.solve(np.eye(n) - pt, np.array([lam[p] for p in open_places])) if n else []
-    inflow = {p: float(x[idx[p]]) for p in open_places}
-    # the rest: reached (inflow > 0) means jobs pile up and circulate without bound
-    reached = {p for p in places if p not in idx and lam[p] > 0}
-    reached |= {b for a, b, q, w in moves if a in idx and b is not None and b not in idx
-                and w > 0 and inflow[a] > 0}
-    grew = True
-    while grew:
-        grew = False
-        for a, b, q, w in moves:
-            if a in reached and b is not None and b not in reached and w > 0:
-                reached.add(b)
-                grew = True
-    for p in places:
-        if p not in idx:
-            inflow[p] = math.inf if p in reached else 0.0
-    rates = {}
-    for a, b, q, w in moves:
-        rates[q] = 0.0 if w == 0 or inflow[a] == 0 else w * inflow[a]
-    return rates, {p: inflow[p] for p in places}
-
-
-def pool_loads(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
-    """``(load, staff)`` per pool: offered work (agents busy at the inflow-driven rates: Σ over the
-    job places on the pool's invariant of weight × mean hold × inflow) over staff (mean staff
-    over ``horizon`` with a schedule)."""
-    h = scenario.run.horizon if horizon is None else horizon
-    _, inflow = offered_rates(scenario, h)
-    invariants = pool_invariants(scenario)
-    load, staff = {}, {}
-    for r, pool in scenario.pools.items():
-        staff[r] = pool.mean_staff(h)
-        inv = invariants[r]
-        if not inv:
-            load[r] = math.nan
-            continue
-        work = sum(w * scenario.places[p].hold_mean * inflow[p]
-                   for p, w in inv.items()
-                   if p in scenario.places and scenario.places[p].hold_mean > 0 and inflow[p] > 0)
-        if staff[r] > 0:
-            load[r] = work / staff[r]
-        else:
-            load[r] = math.inf if work > 0 else 0.0
-    return load, staff
-
-
 # --- throughput ----------------------------------------------------------------------------------
-
-
-def _rise_tolerance(value: float, tolerance: float = RISE_TOLERANCE) -> float:
-    return tolerance * max(1.0, abs(value))
 
 
 def _lp_answer(scenario: Scenario):
     sol = throughput_lp(scenario)
-    ending = scenario.ending_transitions or tuple(scenario.transitions)
+    ending = output_transitions(scenario)
     base = sum(sol.rates[q] for q in ending)
-    bottlenecks = []
-    for pool, p in scenario.pools.items():
-        more = throughput_lp(scenario, staff={pool: p.staff + 1})
-        if sum(more.rates[q] for q in ending) - base > _rise_tolerance(base):
-            bottlenecks.append(pool)
-    return sol, base, tuple(bottlenecks)
+
+    def with_one_more(pool: str) -> float:
+        more = throughput_lp(scenario, staff={pool: scenario.pools[pool].staff + 1})
+        return sum(more.rates[q] for q in ending)
+
+    return sol, base, bottlenecks(scenario.pools, base, with_one_more, "lp")
 
 
 def _window(scenario: Scenario, sol: CounterSolution) -> tuple[float, float]:
-    end = min(scenario.run.horizon, sol.horizon)
-    start = scenario.run.warmup if scenario.run.warmup < end else 0.0
-    return start, end
-
-
-def _counter_output(sol: CounterSolution, ending, window) -> float:
-    """Long-run output rate, or (time-varying nets) the mean over the window of the total ended
-    counter, which rises whenever some job ends earlier."""
-    if window is None:
-        return sum(sol.rates[q] for q in ending)
-    i, j = (int(round(t / sol.dt)) for t in window)
-    return float(sum(sol.counters[q][i: j + 1].mean() for q in ending))
+    return statistics_window(scenario, min(scenario.run.horizon, sol.horizon))
 
 
 def throughput(
@@ -276,10 +170,8 @@ def throughput(
     (at most 20 000 grid points unless a grid is given) and report the largest relative rate
     difference.
     """
-    constant = not scenario.has_time_variation
     if method == "auto":
-        lp_holds = constant and not scenario.has_priorities and not places_without_exit(scenario)
-        method = "lp" if lp_holds else "counters"
+        method = "lp" if lp_applies(scenario) else "counters"
     if method not in ("lp", "counters"):
         raise ValueError(f"method must be 'auto', 'lp' or 'counters' (got {method!r})")
     notes = []
@@ -298,7 +190,7 @@ def throughput(
 
 
 def _by_lp(scenario, dt, horizon, cross_check, notes, common) -> FluidResult:
-    sol, output, bottlenecks = _lp_answer(scenario)
+    sol, output, limiting = _lp_answer(scenario)
     check = counters = None
     if cross_check:
         # keep the check cheap unless the caller asked for a particular grid
@@ -312,7 +204,7 @@ def _by_lp(scenario, dt, horizon, cross_check, notes, common) -> FluidResult:
         )
     return FluidResult(
         method="lp", rates=sol.rates, source_rates=sol.source_rates, output_rate=output,
-        bottlenecks=bottlenecks, cross_check=check,
+        bottlenecks=limiting, cross_check=check,
         rounding=None if counters is None else counters.rounding,
         dt=None if counters is None else counters.dt,
         horizon=None if counters is None else counters.horizon,
@@ -337,17 +229,17 @@ def _by_counters(scenario, dt, horizon, notes, common) -> FluidResult:
     if window is None and sol.period is None:
         notes.append("the counters had not become periodic by the horizon: long-run rates are "
                      "estimated from the slope over its last half")
-    ending = scenario.ending_transitions or tuple(scenario.transitions)
-    base = _counter_output(sol, ending, window)
-    bottlenecks = []
-    for pool in scenario.pools:
+    ending = output_transitions(scenario)
+
+    def with_one_more(pool: str) -> float:
         more = integrate_counters(scenario, dt=sol.dt, horizon=sol.horizon, extra_staff={pool: 1})
-        rise = _counter_output(more, ending, window) - base
-        if rise > _rise_tolerance(base, COUNTER_RISE_TOLERANCE):
-            bottlenecks.append(pool)
+        return counter_output_level(more, ending, window)
+
+    limiting = bottlenecks(scenario.pools, counter_output_level(sol, ending, window),
+                           with_one_more, "counters")
     return FluidResult(
         method="counters", rates=rates, source_rates=srates,
-        output_rate=sum(rates[q] for q in ending), bottlenecks=tuple(bottlenecks),
+        output_rate=sum(rates[q] for q in ending), bottlenecks=limiting,
         window=window, rounding=sol.rounding, dt=sol.dt, horizon=sol.horizon,
         notes=tuple(notes), counters=sol, **common,
     )

@@ -33,6 +33,7 @@ from typing import Mapping
 import numpy as np
 
 from .scenario import Scenario
+from .structure import inflow, outflow, route_share
 
 __all__ = ["CounterSolution", "integrate_counters", "choose_step", "default_horizon"]
 
@@ -321,7 +322,7 @@ def _integrate(scenario, dt, horizon, staff, extra_staff, max_points) -> Counter
                     terms.append((Z[other], w, pad if j < i else pad - 1))
                     if j < i:
                         edges[other].add(q)
-            spec = (base[p], scenario.proportion(p, q) / float(a), tuple(terms))
+            spec = (base[p], route_share(scenario, p, q) / float(a), tuple(terms))
             specs[q].append(spec)
             if scenario.is_job_place(p):
                 job_specs[q] = (base[p], spec[1], plain)
@@ -417,19 +418,13 @@ def _markings(scenario, counters, src_z, level, delay, n):
     markings: dict[str, np.ndarray] = {}
     waiting: dict[str, np.ndarray] = {}
     for p in (*scenario.pools, *scenario.places):
-        inflow = np.zeros(n)
-        for c in scenario.inputs_of(p):
-            inflow += scenario.transitions[c].outputs[p] * counters[c]
-        for s in scenario.sources_into(p):
-            inflow += src_z[s]
-        outflow = np.zeros(n)
-        for q in scenario.outputs_of(p):
-            outflow += scenario.transitions[q].inputs[p] * counters[q]
+        into = np.zeros(n) + inflow(scenario, p, counters, src_z)
+        out = np.zeros(n) + outflow(scenario, p, counters)
         if p in level:
-            markings[p] = level[p] + inflow - outflow
+            markings[p] = level[p] + into - out
         else:
-            markings[p] = inflow - outflow
-            waiting[p] = _shift(inflow, delay[p]) - outflow
+            markings[p] = into - out
+            waiting[p] = _shift(into, delay[p]) - out
     return markings, waiting
 
 

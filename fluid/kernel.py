@@ -30,8 +30,6 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
-
 __all__ = ["run", "COMPILED"]
 
 MAX_SWEEPS = 50

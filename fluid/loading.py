@@ -1,4 +1,5 @@
-"""Reading a scenario: YAML without duplicate keys, ``--set`` overrides, and validation.
+"""Reading a scenario: YAML without duplicate keys, ``--set`` overrides, and validation; variants
+of a scenario (:func:`with_changes`) go through the same overrides and validation.
 
 Everything a user can get wrong is reported as one :class:`~fluid.errors.ScenarioError` naming
 the file, the field path and the value; nothing else escapes :func:`load_scenario` for bad
@@ -40,6 +41,7 @@ __all__ = [
     "scenario_from_document",
     "parse_override",
     "apply_override",
+    "with_changes",
     "ScenarioWarning",
 ]
 
@@ -223,6 +225,20 @@ def scenario_from_document(
         raise exc.to_scenario_error(file) from None
     _warn_uncovered_pools(scenario)
     return scenario
+
+
+def with_changes(scenario: Scenario, changes: Mapping[str, Any] | None = None, **kw) -> Scenario:
+    """Return a validated copy of ``scenario`` with ``changes`` applied to its document.
+
+    ``changes`` maps dotted paths to Python values, e.g. ``{"pools.front_desk": 12,
+    "sources.calls.rate": 3.5}`` (the same paths as ``--set``). Keyword arguments are also
+    accepted as top-level paths. Raises :class:`fluid.errors.ScenarioError` if the result is not
+    a valid scenario. A variant is thus exactly what the same YAML edited by hand would give.
+    """
+    doc = scenario.to_document()
+    for path, value in {**(changes or {}), **kw}.items():
+        apply_override(doc, path, value, file=scenario.file)
+    return scenario_from_document(doc, file=scenario.file, base_dir=scenario.base_dir)
 
 
 def _warn_uncovered_pools(scenario: Scenario) -> None:

@@ -18,7 +18,7 @@ solution's residuals are re-checked here before it is returned.
 The LP needs every job to be able to end: around a circuit of places that jobs cannot leave
 (every output leads back into it) fed jobs pile up and circulate, the counters are no longer
 asymptotically affine, and the pinned source offsets make the LP answer 0 there. Such nets are
-refused (:func:`places_without_exit`); their counters can still be integrated.
+refused (:func:`fluid.structure.places_without_exit`); their counters can still be integrated.
 
 The fluid model ignores patience (abandonment is added later by Whitt's fluid model in
 ``compare``).
@@ -34,8 +34,9 @@ from scipy.optimize import linprog
 
 from .errors import SolverError
 from .scenario import Scenario
+from .structure import places_without_exit, route_share
 
-__all__ = ["LPSolution", "throughput_lp", "places_without_exit", "RESIDUAL_TOLERANCE"]
+__all__ = ["LPSolution", "throughput_lp", "RESIDUAL_TOLERANCE"]
 
 # Relative tolerance of the residual re-check; HiGHS's own primal feasibility tolerance is 1e-7.
 RESIDUAL_TOLERANCE = 1e-6
@@ -73,23 +74,6 @@ class _Rows:
         self.b.append(rhs)
         self.names.append(name)
         self.marking_of.append(pool)
-
-
-def places_without_exit(scenario: Scenario) -> list[str]:
-    """Job places from which no job can ever end: no path of transitions with a positive routing
-    proportion leads to a transition that ends the job (declaration order)."""
-    can_end: set[str] = set()
-    grew = True
-    while grew:
-        grew = False
-        for q in scenario.transitions:
-            a, b = scenario.job_input(q), scenario.job_output(q)
-            if a in can_end or scenario.proportion(a, q) <= 0:
-                continue
-            if b is None or b in can_end:
-                can_end.add(a)
-                grew = True
-    return [p for p in scenario.places if p not in can_end]
 
 
 def _arrival_rate(scenario: Scenario, source: str, arrival_rates: Mapping[str, float] | None):
@@ -157,7 +141,7 @@ def throughput_lp(
     net = scenario.transitions
     for q in trans:
         for p, a in net[q].inputs.items():
-            pi = scenario.proportion(p, q)
+            pi = route_share(scenario, p, q)
             feeders = [(c, float(net[c].outputs[p])) for c in scenario.inputs_of(p)]
             feeders += [(s, 1.0) for s in scenario.sources_into(p)]
             is_pool = scenario.is_pool(p)

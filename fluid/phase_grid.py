@@ -2,8 +2,9 @@
 
 The rate of the transitions ``of`` comes from the counter equations (:mod:`fluid.counters`)
 integrated at integer staff points of one or two pools; a pool is limiting at a point when one
-more agent in it raises the rate (two pools at once where no single agent helps). Rates per the
-scenario's time unit. Called by :func:`fluid.phases.phase_diagram`.
+more agent in it raises the rate (:func:`fluid.structure.output_rises`; two pools at once where
+no single agent helps). Rates per the scenario's time unit. Called by
+:func:`fluid.phases.phase_diagram`.
 """
 
 from __future__ import annotations
@@ -11,11 +12,12 @@ from __future__ import annotations
 import itertools
 import math
 
-from .analysis import offered_rates
 from .counters import integrate_counters
-from .lp import places_without_exit
-from .phases import COUNTER_RISE, GridPoint, PhaseDiagram
+from .offered import offered_rates
+from .phase_results import GridPoint, PhaseDiagram
 from .scenario import Scenario
+from .structure import (COUNTER_RISE, counter_output_level, lp_obstacles, output_rises,
+                        statistics_window)
 
 __all__ = ["grid_diagram"]
 
@@ -42,10 +44,7 @@ def grid_diagram(scenario: Scenario, axes: tuple[str, ...], of: tuple[str, ...],
     constant = not scenario.has_time_variation
     horizon = None if constant else scenario.run.horizon
     dt = integrate_counters(scenario, horizon=horizon).dt
-    window = None
-    if not constant:
-        end = scenario.run.horizon
-        window = (scenario.run.warmup if scenario.run.warmup < end else 0.0, end)
+    window = None if constant else statistics_window(scenario, scenario.run.horizon)
     runs = 0
 
     def solve(point, extra=None, grid=None):
@@ -61,8 +60,7 @@ def grid_diagram(scenario: Scenario, axes: tuple[str, ...], of: tuple[str, ...],
             r = sum(sol.rates[q] for q in of)
             return r, r
         r = sum(sol.rates_between(*window)[q] for q in of)
-        i, j = (int(round(t / sol.dt)) for t in window)
-        return r, float(sum(sol.counters[q][i: j + 1].mean() for q in of))
+        return r, counter_output_level(sol, of, window)
 
     rates, _ = offered_rates(scenario)
     inflow = float(sum(rates[q] for q in of))
@@ -84,7 +82,7 @@ def grid_diagram(scenario: Scenario, axes: tuple[str, ...], of: tuple[str, ...],
             more = base[up][2]
         else:
             more = measures(solve(pt, extra={p: 1 for p in pools}, grid=grid))[1]
-        return more - level > COUNTER_RISE * max(1.0, abs(level))
+        return output_rises(level, more, "counters")
 
     grid_points = []
     for pt in points:
@@ -100,11 +98,7 @@ def grid_diagram(scenario: Scenario, axes: tuple[str, ...], of: tuple[str, ...],
             limiting = [p for p in scenario.pools if p in limiting]
         grid_points.append(GridPoint(a=pt[0], b=pt[1] if len(pt) > 1 else None,
                                      rate=float(rate), limiting=tuple(limiting)))
-    reasons = [why for why, holds in (
-        ("priorities", scenario.has_priorities),
-        ("arrival profiles or traces", any(not s.arrivals.is_constant for s in scenario.sources.values())),
-        ("schedules", any(p.schedule is not None for p in scenario.pools.values())),
-        ("jobs that can never end", bool(places_without_exit(scenario)))) if holds]
+    reasons = lp_obstacles(scenario)
     notes = [f"the throughput LP does not apply ({', '.join(reasons)}): rates come from the "
              f"counter equations integrated at {len(grid_points)} integer staff points (time "
              f"step {dt:g} {scenario.time_unit}); no exact pieces; limiting pools by one-agent "

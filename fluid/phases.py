@@ -23,13 +23,15 @@ coefficients, found at a staff beyond every pool's offered work) and ``V`` does 
 
 A piece is labelled by its *limiting pools*: the axis pools with a positive coefficient, and the
 other pools whose one more agent raises the rate at a point inside the piece's cell (a one-agent
-difference, as :func:`fluid.analysis.throughput` finds bottlenecks); "inflow" when there are none.
+difference, the bottleneck test of :func:`fluid.structure.output_rises`); "inflow" when there are
+none.
 Pieces whose cell has no interior among the non-negative staff are dropped (they never decide
 the minimum).
 
-With priorities, arrival profiles or traces, or schedules, the LP does not apply: the counter
-equations are integrated at the integer staff points of a grid (:func:`fluid.counters.
-integrate_counters`), each point labelled by one-agent differences; no exact pieces are given.
+With priorities, arrival profiles or traces, or schedules, the LP does not apply
+(:func:`fluid.structure.lp_applies`): the counter equations are integrated at the integer staff
+points of a grid (:mod:`fluid.phase_grid`), each point labelled by one-agent differences; no
+exact pieces are given. The result types are in :mod:`fluid.phase_results`.
 
 Staff in agents (real numbers for the LP); rates per the scenario's time unit.
 """
@@ -38,206 +40,22 @@ from __future__ import annotations
 
 import itertools
 import math
-from dataclasses import dataclass
 from typing import Iterable, Mapping, Sequence
 
 import numpy as np
-import pandas as pd
 from scipy.optimize import linprog
 
-from .analysis import offered_rates
-from .lp import places_without_exit, throughput_lp
+from .lp import throughput_lp
+from .offered import offered_rates, offered_work
+from .phase_grid import grid_diagram
+from .phase_results import INFLOW, GridPoint, PhaseDiagram, Piece
 from .scenario import Scenario
-from .staffing import offered_work
+from .structure import lp_applies, output_rises, output_transitions
 
-__all__ = ["Piece", "GridPoint", "PhaseDiagram", "phase_diagram", "MATCH_TOLERANCE"]
+__all__ = ["Piece", "GridPoint", "PhaseDiagram", "INFLOW", "phase_diagram", "MATCH_TOLERANCE"]
 
 #: Relative tolerance within which the envelope must match the LP at every test point.
 MATCH_TOLERANCE = 1e-9
-# A one-agent rise counts (relative) above this: the LP is exact to about 1e-9, the counters'
-# long-run slopes to about 1e-6 (as in fluid.analysis)
-LP_RISE = 1e-7
-COUNTER_RISE = 1e-6
-INFLOW = "inflow"
-
-
-@dataclass(frozen=True)
-class Piece:
-    """One affine piece: rate = ``const + Σ coef[x]·x`` over the axis pools x (per time unit)
-    with the other pools at the scenario's staff (their terms are inside ``const``).
-    ``coef_all``: the LP dual of every pool's staff (d rate / d staff, per agent) at the point
-    the piece came from; ``limiting``: limiting pools in the piece's cell (empty:
-    inflow-limited); ``witness``: a staff point inside the cell (one value per axis)."""
-
-    const: float
-    coef: dict[str, float]
-    coef_all: dict[str, float]
-    limiting: tuple[str, ...]
-    witness: tuple[float, ...]
-
-    @property
-    def label(self) -> str:
-        return "+".join(self.limiting) if self.limiting else INFLOW
-
-    def value(self, *staff):
-        """The piece at ``staff`` (one scalar or array per axis, in axis order)."""
-        if len(staff) != len(self.coef):
-            raise TypeError(f"the piece has {len(self.coef)} axis pool(s), got {len(staff)} "
-                            "staff values")
-        return sum((c * np.asarray(x, dtype=float) for c, x in zip(self.coef.values(), staff)),
-                   np.asarray(self.const, dtype=float))
-
-    def to_json(self) -> dict:
-        return {"const": self.const, "coef": dict(self.coef), "limiting": list(self.limiting),
-                "label": self.label, "coef_all": dict(self.coef_all),
-                "witness": list(self.witness)}
-
-
-@dataclass(frozen=True)
-class GridPoint:
-    """Counter-equation rate (per time unit) at integer staff ``a`` (first axis) and ``b``
-    (second axis; None with one axis), and its limiting pools."""
-
-    a: int
-    b: int | None
-    rate: float
-    limiting: tuple[str, ...]
-
-    @property
-    def point(self) -> tuple[int, ...]:
-        return (self.a,) if self.b is None else (self.a, self.b)
-
-    @property
-    def label(self) -> str:
-        return "+".join(self.limiting) if self.limiting else INFLOW
-
-
-@dataclass(frozen=True)
-class PhaseDiagram:
-    """Fluid rate of ``of`` (transitions summed) over the staff of the ``axes`` pools (one or
-    two).
-
-    ``method``: "lp" (exact ``pieces``, valid for all non-negative staff) or "counters-grid"
-    (``grid`` of integer points, no pieces). ``ranges``: pool -> (low, high) staff drawn;
-    ``staff``: the scenario's staff per pool (mean staff with a schedule); ``inflow_rate``: the
-    rate of ``of`` when no pool limits; ``of_label``: what ``of`` is, in words; ``lp_solves``:
-    LPs (or counter integrations) used; ``max_mismatch``: largest relative excess of the
-    envelope over the LP at the test points (≤ :data:`MATCH_TOLERANCE` when ``exact``)."""
-
-    scenario_name: str
-    time_unit: str
-    of: tuple[str, ...]
-    axes: tuple[str, ...]
-    ranges: dict[str, tuple[float, float]]
-    staff: dict[str, float]
-    method: str
-    pieces: tuple[Piece, ...]
-    grid: tuple[GridPoint, ...]
-    inflow_rate: float
-    lp_solves: int
-    max_mismatch: float
-    exact: bool
-    notes: tuple[str, ...] = ()
-    of_label: str = ""
-
-    # --- evaluation ------------------------------------------------------------------------------
-
-    def rate_at(self, *staff):
-        """Fluid rate at ``staff`` (one scalar or array per axis). Exact for the LP method; for
-        the counters grid, linear (one axis) or bilinear (two) interpolation between grid points
-        (exact on them)."""
-        self._check_point(staff)
-        if self.method == "lp":
-            return self._envelope(*staff)[0]
-        return self._interpolate(*staff)
-
-    def piece_at(self, *staff):
-        """Index of the piece that decides the rate at ``staff`` (LP method only)."""
-        if self.method != "lp":
-            raise ValueError("a counters-grid diagram has no pieces")
-        self._check_point(staff)
-        return self._envelope(*staff)[1]
-
-    def label_at(self, *staff: float) -> str:
-        """Limiting pools at ``staff`` joined by "+", or "inflow"."""
-        if self.method == "lp":
-            return self.pieces[int(self.piece_at(*staff))].label
-        self._check_point(staff)
-        p = min(self.grid, key=lambda g: sum((u - v) ** 2 for u, v in zip(g.point, staff)))
-        return p.label
-
-    def _check_point(self, staff) -> None:
-        if len(staff) != len(self.axes):
-            raise TypeError(f"the diagram has {len(self.axes)} axis pool(s), got {len(staff)} "
-                            "staff values")
-
-    def _envelope(self, *staff):
-        staff = np.broadcast_arrays(*(np.asarray(x, dtype=float) for x in staff))
-        values = np.stack([np.broadcast_to(p.value(*staff), staff[0].shape)
-                           for p in self.pieces])
-        idx = np.argmin(values, axis=0)
-        out = np.take_along_axis(values, idx[None, ...], axis=0)[0]
-        if out.ndim == 0:
-            return float(out), int(idx)
-        return out, idx
-
-    def _interpolate(self, *staff):
-        from scipy.interpolate import RegularGridInterpolator
-
-        # the grid is a full rectangle listed in axis-major order (see _grid_diagram)
-        values = [np.array(sorted({g.point[i] for g in self.grid}), dtype=float)
-                  for i in range(len(self.axes))]
-        if any(v.size < 2 for v in values):
-            raise ValueError("the grid needs two values on each axis to interpolate")
-        table = np.array([g.rate for g in self.grid]).reshape([v.size for v in values])
-        f = RegularGridInterpolator(tuple(values), table, bounds_error=True)
-        staff = np.broadcast_arrays(*(np.asarray(x, dtype=float) for x in staff))
-        out = f(np.stack([x.ravel() for x in staff], axis=-1)).reshape(staff[0].shape)
-        return float(out) if out.ndim == 0 else out
-
-    def box(self) -> tuple[float, ...]:
-        """(low, high) of each axis in turn: (a low, a high, b low, b high) with two axes."""
-        return tuple(x for p in self.axes for x in self.ranges[p])
-
-    # --- output ----------------------------------------------------------------------------------
-
-    def to_json(self) -> dict:
-        """``{"of", "axes", "pieces": [{"const", "coef": {pool: x}, "limiting": [pools], ...}],
-        "method", "ranges", "notes", ...}``: the rate at the axis pools' staff, other pools as
-        in the scenario, is the minimum over pieces of const + Σ coef × staff, for every
-        non-negative staff (method "lp"). "limiting" is empty for the inflow-limited piece (its
-        "label" is "inflow"). With method "counters-grid" "pieces" is empty and "grid" lists the
-        points ("a": staff of the first axis, "b" of the second when there are two)."""
-        grid = [{"a": g.a, **({} if g.b is None else {"b": g.b}), "rate": g.rate,
-                 "limiting": list(g.limiting), "label": g.label} for g in self.grid]
-        return {
-            "scenario": self.scenario_name,
-            "time_unit": self.time_unit,
-            "of": list(self.of),
-            "of_label": self.of_label,
-            "axes": list(self.axes),
-            "pieces": [p.to_json() for p in self.pieces],
-            "method": self.method,
-            "ranges": {k: list(v) for k, v in self.ranges.items()},
-            "staff": dict(self.staff),
-            "inflow_rate": self.inflow_rate,
-            "exact": self.exact,
-            "lp_solves": self.lp_solves,
-            "max_mismatch": (self.max_mismatch if math.isfinite(self.max_mismatch) else None),
-            "grid": grid,
-            "notes": list(self.notes),
-        }
-
-    def to_frame(self) -> pd.DataFrame:
-        """LP method: one row per piece (piece, const, coef_<axis> per axis, label). Counters
-        grid: one row per point (the axis pools as column names, rate, label)."""
-        if self.method == "lp":
-            rows = [(i, p.const, *(p.coef[x] for x in self.axes), p.label)
-                    for i, p in enumerate(self.pieces)]
-            return pd.DataFrame(rows, columns=["piece", "const",
-                                               *(f"coef_{x}" for x in self.axes), "label"])
-        rows = [(*g.point, g.rate, g.label) for g in self.grid]
-        return pd.DataFrame(rows, columns=[*self.axes, "rate", "label"])
 
 
 # --- inputs --------------------------------------------------------------------------------------
@@ -255,7 +73,7 @@ def _check_axes(scenario: Scenario, axes: str | Sequence[str]) -> tuple[str, ...
 
 def _check_of(scenario: Scenario, of: str | Iterable[str] | None) -> tuple[str, ...]:
     if of is None:
-        return tuple(scenario.ending_transitions or scenario.transitions)
+        return output_transitions(scenario)
     names = (of,) if isinstance(of, str) else tuple(of)
     if not names:
         raise ValueError("of must name at least one transition")
@@ -313,12 +131,8 @@ def phase_diagram(
     box = _ranges(scenario, axes, ranges, staff, work)
     common = dict(scenario_name=scenario.name, time_unit=scenario.time_unit, of=of, axes=axes,
                   ranges=box, staff=staff, of_label=of_label)
-    lp_holds = (not scenario.has_priorities and not scenario.has_time_variation
-                and not places_without_exit(scenario))
-    if lp_holds:
+    if lp_applies(scenario):
         return _lp_diagram(scenario, axes, of, work, max_solves, common)
-    from .phase_grid import grid_diagram  # (it builds on this module's result types)
-
     return grid_diagram(scenario, axes, of, box, max_grid, common)
 
 
@@ -528,7 +342,7 @@ def _labelled(oracle: _Oracle, axes, found: list) -> list[Piece]:
             staff = oracle.base | dict(zip(axes, witness))
             base, _ = oracle.value_at(staff)
             more, _ = oracle.value_at(staff | {p: staff[p] + 1})
-            if more - base > LP_RISE * max(1.0, abs(base)):
+            if output_rises(base, more, "lp"):
                 limiting.append(p)
         out.append(Piece(const=float(piece[0]) + 0.0,
                          coef={x: float(c) for x, c in zip(axes, piece[1:-1])},
@@ -536,5 +350,3 @@ def _labelled(oracle: _Oracle, axes, found: list) -> list[Piece]:
     out.sort(key=lambda p: (len(p.limiting), p.label, p.const))
     return out
 
-
-# --- the counters grid ---------------------------------------------------------------------------

@@ -2,8 +2,11 @@
 
 A :class:`Scenario` is built by :func:`fluid.loading.load_scenario` (which validates the YAML
 document of design.md §3) and never changes afterwards. Variants (another staffing plan, scaled
-volumes) come from :func:`with_changes`, which applies overrides to the scenario's document and
-validates the result again, so a variant is exactly what the same YAML edited by hand would give.
+volumes) come from :func:`fluid.loading.with_changes`, which applies overrides to the scenario's
+document and validates the result again, so a variant is exactly what the same YAML edited by
+hand would give. The structure queries here read the net as written (arcs, routes, priorities);
+the facts derived from it (routing shares, reachability, flows, ...) are in
+:mod:`fluid.structure`.
 
 All times are in the scenario's ``time_unit``; rates are per that unit.
 """
@@ -29,7 +32,6 @@ __all__ = [
     "ServiceTarget",
     "Targets",
     "Scenario",
-    "with_changes",
 ]
 
 
@@ -170,7 +172,8 @@ class Targets:
 
 @dataclass(frozen=True)
 class Scenario:
-    """A validated net with its parameters and targets. Read-only; see :func:`with_changes`."""
+    """A validated net with its parameters and targets. Read-only; see
+    :func:`fluid.loading.with_changes`."""
 
     name: str
     time_unit: str
@@ -240,13 +243,6 @@ class Scenario:
     def ending_transitions(self) -> tuple[str, ...]:
         return tuple(t for t in self.transitions if self.ends_job(t))
 
-    def proportion(self, place: str, transition: str) -> float:
-        """Routing proportion π of ``transition`` at ``place`` (1 without a route)."""
-        node = self.places.get(place)
-        if node is None or node.route is None:
-            return 1.0
-        return node.route[transition]
-
     def priority_order(self, node: str) -> tuple[str, ...]:
         """Output transitions of ``node`` in priority order (empty when it has no priority)."""
         obj = self.places.get(node) or self.pools.get(node)
@@ -272,19 +268,3 @@ class Scenario:
     def to_document(self) -> dict[str, Any]:
         """The (override-applied) YAML document this scenario was validated from."""
         return json.loads(self.document)
-
-
-def with_changes(scenario: Scenario, changes: Mapping[str, Any] | None = None, **kw) -> Scenario:
-    """Return a validated copy of ``scenario`` with ``changes`` applied to its document.
-
-    ``changes`` maps dotted paths to Python values, e.g. ``{"pools.front_desk": 12,
-    "sources.calls.rate": 3.5}`` (the same paths as ``--set``). Keyword arguments are also
-    accepted as top-level paths. Raises :class:`fluid.errors.ScenarioError` if the result is not
-    a valid scenario.
-    """
-    from .loading import apply_override, scenario_from_document
-
-    doc = scenario.to_document()
-    for path, value in {**(changes or {}), **kw}.items():
-        apply_override(doc, path, value, file=scenario.file)
-    return scenario_from_document(doc, file=scenario.file, base_dir=scenario.base_dir)

@@ -1,6 +1,6 @@
 """The cheapest whole-agent staffing that lets every transition reach its inflow-driven fluid rate.
 
-With every rate fixed at its inflow-driven value ``ρ*`` (:func:`fluid.analysis.offered_rates`:
+With every rate fixed at its inflow-driven value ``ρ*`` (:func:`fluid.offered.offered_rates`:
 what each transition would carry if no pool limited), the marking constraints of the throughput
 LP of design.md §4.1,
 
@@ -17,7 +17,7 @@ A pool's agents are shared by all its outputs, so a pool gives one constraint fo
 together (``Σ_q a u_q ≤ M_p + Σ b u_{q'}``), whether or not it has a priority: every output must
 reach its inflow-driven rate anyway, so the order in which the pool serves them does not matter
 once there is capacity for all. At a job place with a priority the inflow-driven rates send every
-job to the highest-priority output (as :func:`~fluid.analysis.offered_rates` does), so the place
+job to the highest-priority output (as :func:`~fluid.offered.offered_rates` does), so the place
 is read as a route with proportion 1 for that output and 0 for the others. Where a pool has a
 priority the re-check uses the counter equations (priorities included) instead of the LP.
 
@@ -37,15 +37,16 @@ import numpy as np
 import pandas as pd
 from scipy.optimize import Bounds, LinearConstraint, milp
 
-from .analysis import offered_rates
 from .counters import integrate_counters
 from .errors import SolverError
-from .invariants import pool_invariants
-from .lp import places_without_exit, throughput_lp
-from .scenario import FrozenMap, Scenario, with_changes
+from .loading import with_changes
+from .lp import throughput_lp
+from .offered import offered_rates, offered_work
+from .scenario import FrozenMap, Scenario
 from .sources import PoissonArrivals
+from .structure import inflow, lp_applies, places_without_exit, unlimited_share
 
-__all__ = ["FluidPlan", "fluid_plan", "offered_work", "with_staff", "plan_view"]
+__all__ = ["FluidPlan", "fluid_plan", "with_staff", "plan_view"]
 
 # A rate reached in the re-check may fall short of the inflow-driven one by this (relative): the
 # LP is exact to HiGHS's tolerances; the counters' long-run slopes to about 1e-6 while converging
@@ -101,26 +102,7 @@ def _num(x: float | None) -> float | None:
     return None if x is None or not math.isfinite(x) else float(x)
 
 
-# --- helpers shared with phase diagrams and the simulated search ---------------------------------
-
-
-def offered_work(scenario: Scenario, horizon: float | None = None) -> dict[str, float]:
-    """Pool -> agents busy at the inflow-driven rates (offered load R, in agents): Σ over the job
-    places on the pool's conservation invariant of weight × mean hold × inflow. nan for a pool on
-    no invariant. Profiles count at their mean rate over ``horizon`` (default the run horizon)."""
-    _, inflow = offered_rates(scenario, horizon)
-    invariants = pool_invariants(scenario)
-    work = {}
-    for r in scenario.pools:
-        inv = invariants[r]
-        if not inv:
-            work[r] = math.nan
-            continue
-        work[r] = float(sum(w * scenario.places[p].hold_mean * inflow[p]
-                            for p, w in inv.items()
-                            if p in scenario.places and scenario.places[p].hold_mean > 0
-                            and inflow[p] > 0))
-    return work
+# --- variants read by the plan, phase diagrams and the simulated search -------------------------
 
 
 def with_staff(scenario: Scenario, staff: Mapping[str, int]) -> Scenario:
@@ -154,20 +136,10 @@ def plan_view(scenario: Scenario) -> Scenario:
     places = {}
     for n, p in scenario.places.items():
         if p.priority:
-            route = FrozenMap({q: (1.0 if i == 0 else 0.0) for i, q in enumerate(p.priority)})
+            route = FrozenMap({q: unlimited_share(scenario, n, q) for q in p.priority})
             p = replace(p, priority=(), route=route)
         places[n] = p
     return replace(scenario, sources=FrozenMap(sources), places=FrozenMap(places))
-
-
-def _share(scenario: Scenario, place: str, transition: str) -> float:
-    """π used by the plan: route share; at a job place with a priority, 1 for the first output."""
-    if scenario.is_pool(place):
-        return 1.0
-    order = scenario.priority_order(place)
-    if order:
-        return 1.0 if order[0] == transition else 0.0
-    return scenario.proportion(place, transition)
 
 
 # --- the mixed-integer program -------------------------------------------------------------------
@@ -199,7 +171,7 @@ def _groups(scenario: Scenario):
             yield p, outs, 1.0
         else:
             for q in outs:
-                yield p, (q,), _share(scenario, p, q)
+                yield p, (q,), unlimited_share(scenario, p, q)
 
 
 def _check_flows(scenario: Scenario, rates: dict, lam: dict) -> None:
@@ -207,8 +179,7 @@ def _check_flows(scenario: Scenario, rates: dict, lam: dict) -> None:
     cannot carry them with any staff)."""
     net = scenario.transitions
     for p, outs, pi in _groups(scenario):
-        fed = sum(float(net[c].outputs[p]) * rates[c] for c in scenario.inputs_of(p))
-        fed += sum(lam[s] for s in scenario.sources_into(p))
+        fed = inflow(scenario, p, rates, lam)
         need = sum(float(net[q].inputs[p]) * rates[q] for q in outs)
         if need > pi * fed * (1 + 1e-9) + 1e-12:
             raise ValueError(
@@ -308,7 +279,9 @@ def _recheck(scenario: Scenario, staff: dict, rates: dict, lam: dict) -> float:
     hold there); return the worst relative shortfall of a rate below its inflow-driven value and
     raise when it exceeds the tolerance."""
     view = plan_view(scenario)
-    if any(p.priority for p in view.pools.values()):
+    # (the view has constant rates and no priorities at job places: a pool's priority is what
+    # keeps the LP from applying)
+    if not lp_applies(view, constant_staff=True):
         got, tolerance = integrate_counters(view, staff=staff).rates, COUNTER_TOLERANCE
     else:
         got, tolerance = throughput_lp(view, staff=staff).rates, RECHECK_TOLERANCE

@@ -164,7 +164,7 @@ def simulation_text(s: Scenario, r) -> str:
         ["transition", f"rate per {unit}"],
         [[t, _est(v["rate"], n)] for t, v in r.transitions.items()],
     ))
-    from desim import waiting_places
+    from fluid.structure import waiting_places
 
     rows = []
     for p in waiting_places(s):

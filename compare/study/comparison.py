@@ -18,7 +18,8 @@ import pandas as pd
 
 from desim import SimulationResult, SimulationSettings, replicate, resolve_settings
 from fluid.analysis import FluidResult, throughput
-from fluid.scenario import Scenario, with_changes
+from fluid.loading import with_changes
+from fluid.scenario import Scenario
 
 from .flags import Flag, find_flags
 from .gaps import Gaps, gap_tables

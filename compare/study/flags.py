@@ -42,8 +42,9 @@ import numpy as np
 from desim import Estimate, SimulationResult
 from fluid.analysis import FluidResult
 from fluid.scenario import Scenario
+from fluid.structure import route_share, serving_pools
 
-from .gaps import Gaps, simulated_abandonment
+from .gaps import Gaps
 
 __all__ = [
     "ABANDONMENT_TOLERANCE",
@@ -137,11 +138,6 @@ def _shortfall_root(scenario: Scenario, transition: str, short: set[str]) -> str
     return root
 
 
-def _serving_pools(scenario: Scenario, place: str) -> list[str]:
-    return list(dict.fromkeys(r for q in scenario.outputs_of(place)
-                              for r in scenario.transitions[q].inputs if r in scenario.pools))
-
-
 def _busiest(pools: list[str], fluid: FluidResult, sim: SimulationResult) -> str | None:
     if not pools:
         return None
@@ -172,7 +168,7 @@ def downstream_hold(scenario: Scenario, place: str) -> float:
     when none is found."""
     total, weight = 0.0, 0.0
     for q in scenario.outputs_of(place):
-        share = scenario.proportion(place, q)
+        share = route_share(scenario, place, q)
         nxt, steps = scenario.job_output(q), 0
         while nxt is not None and scenario.places[nxt].hold_mean == 0 and steps < len(
                 scenario.places):
@@ -226,7 +222,7 @@ def find_flags(scenario: Scenario, fluid: FluidResult, sim: SimulationResult,
         rate, est = fluid.rates[q], sim.transitions[q]["rate"]
         root = _shortfall_root(scenario, q, set(short))
         # staff where the jobs are lost: the pools serving the root's queue, else those it touches
-        pool = _busiest(_serving_pools(scenario, scenario.job_input(root))
+        pool = _busiest(serving_pools(scenario, scenario.job_input(root))
                         or _upstream_pools(scenario, root), fluid, sim)
         where = "" if root == q else f"the shortfall begins upstream at {root}; "
         flags.append(Flag("throughput_optimistic", q, (
@@ -249,7 +245,7 @@ def find_flags(scenario: Scenario, fluid: FluidResult, sim: SimulationResult,
             why = f"10 % of the downstream hold {_f(hold)} {unit}"
         # (with no target and no hold downstream there is no scale to judge a wait by)
         if (target is not None or threshold > 0) and est.low > threshold:
-            pool = _busiest(_serving_pools(scenario, p), fluid, sim)
+            pool = _busiest(serving_pools(scenario, p), fluid, sim)
             flags.append(Flag("hidden_congestion", p, (
                 f"the fluid model says jobs in {p} do not wait, but the simulated mean wait is "
                 f"{_est(est)} {unit}, above {why}; " + _advice(pool, fluid, sim))))
@@ -258,7 +254,7 @@ def find_flags(scenario: Scenario, fluid: FluidResult, sim: SimulationResult,
     for p, fp in places.items():
         est = sim.places[p]["abandoned"]
         if est.low > fp.abandoned + ABANDONMENT_TOLERANCE:
-            pool = _busiest(_serving_pools(scenario, p), fluid, sim)
+            pool = _busiest(serving_pools(scenario, p), fluid, sim)
             flags.append(Flag("abandonment_underestimated", p, (
                 f"simulated abandonment {_est(est)} exceeds the fluid share {_f(fp.abandoned)} "
                 f"by more than {_pct(ABANDONMENT_TOLERANCE)}: the fluid model understates it; "
@@ -280,16 +276,16 @@ def find_flags(scenario: Scenario, fluid: FluidResult, sim: SimulationResult,
     for p, target in scenario.targets.service.items():
         est = sim.places[p].get("served_within")
         if est is not None and est.high < target.goal:
-            pool = _busiest(_serving_pools(scenario, p), fluid, sim)
+            pool = _busiest(serving_pools(scenario, p), fluid, sim)
             flags.append(Flag("target_missed", p, (
                 f"service level {_est(est)} within {_f(target.within)} {unit} is below the goal "
                 f"{_pct(target.goal)}; " + _advice(pool, fluid, sim))))
     if scenario.targets.abandonment_max is not None:
-        est = gaps.estimates.get("abandonment") or simulated_abandonment(sim)
+        est = gaps.estimates.get("abandonment") or sim.overall_abandonment()
         cap = scenario.targets.abandonment_max
         if est.low > cap:
             where = _most_abandoned(scenario, sim)
-            pool = _busiest(_serving_pools(scenario, where), fluid, sim) if where else None
+            pool = _busiest(serving_pools(scenario, where), fluid, sim) if where else None
             flags.append(Flag("target_missed", where or "abandonment", (
                 f"overall abandonment {_est(est)} is above the maximum {_pct(cap)}"
                 + (f"; most abandonments are at {where}" if where else "") + "; "
@@ -321,7 +317,7 @@ def _unstable(scenario, fluid, sim, places) -> list[Flag]:
     out: list[Flag] = []
     for p, fp in places.items():
         if fp.state == "unstable":
-            pool = _busiest(_serving_pools(scenario, p), fluid, sim)
+            pool = _busiest(serving_pools(scenario, p), fluid, sim)
             out.append(Flag("unstable", p, (
                 f"inflow {_f(fp.inflow)} per {unit} exceeds the fluid capacity "
                 f"{_f(fp.capacity)} and jobs here never abandon: the queue grows without bound; "
@@ -330,7 +326,7 @@ def _unstable(scenario, fluid, sim, places) -> list[Flag]:
     if sim.unstable_replications:
         where = _largest_queue(scenario, sim, places)
         if where not in flagged:
-            pool = _busiest(_serving_pools(scenario, where), fluid, sim)
+            pool = _busiest(serving_pools(scenario, where), fluid, sim)
             out.append(Flag("unstable", where, (
                 f"{sim.unstable_replications} of {sim.replications} replications hit the job cap "
                 f"(too many jobs inside): the net cannot keep up; the largest queue is at "
@@ -341,7 +337,7 @@ def _unstable(scenario, fluid, sim, places) -> list[Flag]:
         if slope.low > 0 and growth > max(1.0, TREND_SHARE * level):
             where = _largest_queue(scenario, sim, places)
             if where not in flagged:
-                pool = _busiest(_serving_pools(scenario, where), fluid, sim)
+                pool = _busiest(serving_pools(scenario, where), fluid, sim)
                 out.append(Flag("unstable", where, (
                     f"the simulated queue keeps growing over the window (slope {_est(slope)} "
                     f"jobs per {unit}, +{_f(growth)} jobs on a mean of {_f(level)}); the "

@@ -4,14 +4,15 @@ Three tables (tidy pandas frames) and two totals, all rates per the scenario's t
 times in it:
 
 * per transition: fluid rate vs simulated rate (mean, 95 % interval, replications);
-* per waiting place (:func:`desim.waiting_places`): fluid vs simulated ``wait`` (mean over all
-  jobs leaving the place, served or abandoning), ``abandoned`` (share), ``queue`` (time-average
-  number waiting) and ``served_within`` (share taken within the target's ``within``; places with
-  a target only);
+* per waiting place (:func:`fluid.structure.waiting_places`): fluid vs simulated ``wait`` (mean
+  over all jobs leaving the place, served or abandoning), ``abandoned`` (share), ``queue``
+  (time-average number waiting) and ``served_within`` (share taken within the target's
+  ``within``; places with a target only);
 * per pool: fluid load (offered work / staff, may exceed 1) and fluid busy fraction (work at the
   fluid rates / staff) vs simulated busy fraction;
 * totals: output rate (the transitions that end jobs) and overall abandonment (abandoned /
-  ended, per replication from the source totals).
+  ended, per replication from the source totals: :meth:`desim.SimulationResult.
+  overall_abandonment`).
 
 Every row carries ``gap = simulated mean − fluid`` and ``rel_gap = gap / |fluid|`` (nan when the
 fluid value is 0 or infinite): a negative throughput gap means the simulation serves less than
@@ -21,7 +22,8 @@ The fluid figures of a waiting place p (steady state; the fluid model of design.
 patience, so an overloaded place simply shows less outflow than inflow):
 
 * λ_p = inflow at the fluid rates (sources into p and transitions putting jobs into p);
-  ρ_p = outflow at the fluid rates (p's output transitions), the capacity the fluid gives p;
+  ρ_p = outflow at the fluid rates (p's output transitions), the capacity the fluid gives p
+  (:func:`fluid.structure.inflow`, :func:`fluid.structure.outflow`);
 * ρ_p >= λ_p (relative tolerance :data:`PLACE_TOLERANCE`): "underloaded" — no wait, no
   abandonment, no queue, everyone within the target;
 * ρ_p < λ_p with patience (CDF F): "overloaded" — Whitt's (2006) fluid model with throughput
@@ -34,7 +36,13 @@ patience, so an overloaded place simply shows less outflow than inflow):
 * scenarios with profiles, traces or schedules: "time-varying" — the figures over the statistics
   window are read from the integrated counters (:func:`compare.transient.window_figures`):
   time-average queue, wait by Little's law, served within by first-in first-out on the fluid
-  curves, and no abandonment (the counters ignore patience).
+  curves (:func:`fluid.service_level.fifo_service_level`), and no abandonment (the counters
+  ignore patience).
+
+So ``served_within`` here is the *steady-state service level with abandonment* (Whitt's fluid
+model, where patience counts), read as the FIFO share over the window when the scenario varies
+in time. It is not :func:`fluid.service_level.service_level_verdicts` (1, 0 or undecided from
+the counters alone), which the phase-diagram overlay uses.
 """
 
 from __future__ import annotations
@@ -45,9 +53,11 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from desim import Estimate, SimulationResult, waiting_places
+from desim import Estimate, SimulationResult
 from fluid.analysis import FluidResult
+from fluid.offered import pool_work
 from fluid.scenario import Scenario
+from fluid.structure import inflow, outflow, output_transitions, waiting_places
 
 from .transient import counters_for, window_figures
 from ..formulas.whitt import whitt_fluid
@@ -61,9 +71,6 @@ __all__ = [
     "fluid_places",
     "fluid_abandonment",
     "gap_tables",
-    "place_inflow",
-    "place_outflow",
-    "simulated_abandonment",
     "simulated_output",
 ]
 
@@ -101,26 +108,13 @@ def _row_json(fluid: float, est: Estimate) -> dict:
 # --- fluid figures per place and pool ------------------------------------------------------------
 
 
-def place_inflow(scenario: Scenario, fluid: FluidResult, place: str) -> float:
-    """Jobs per time unit entering ``place`` at the fluid rates."""
-    total = sum(fluid.source_rates.get(s, 0.0) for s in scenario.sources_into(place))
-    for q in scenario.inputs_of(place):
-        total += scenario.transitions[q].outputs[place] * fluid.rates[q]
-    return float(total)
-
-
-def place_outflow(scenario: Scenario, fluid: FluidResult, place: str) -> float:
-    """Jobs per time unit taken out of ``place`` at the fluid rates."""
-    return float(sum(scenario.transitions[q].inputs[place] * fluid.rates[q]
-                     for q in scenario.outputs_of(place)))
-
-
 @dataclass(frozen=True)
 class FluidPlace:
     """Fluid figures of one waiting place (see the module docstring). ``inflow`` λ_p and
     ``capacity`` ρ_p in jobs per time unit; ``wait`` mean wait of all leaving jobs and
     ``wait_served`` wait of served jobs (time units); ``abandoned`` share; ``queue`` jobs
-    waiting; ``served_within`` share taken within ``within`` (None without a target);
+    waiting; ``served_within`` share taken within ``within`` (the steady-state service level
+    with abandonment of the module docstring; None without a target);
     ``state``: "idle", "underloaded", "overloaded", "unstable" or "time-varying"."""
 
     place: str
@@ -151,8 +145,8 @@ def fluid_place(scenario: Scenario, fluid: FluidResult, place: str) -> FluidPlac
     """Fluid figures of ``place`` (see the module docstring)."""
     target = scenario.targets.service.get(place)
     within = None if target is None else float(target.within)
-    lam = place_inflow(scenario, fluid, place)
-    rho = place_outflow(scenario, fluid, place)
+    lam = float(inflow(scenario, place, fluid.rates, fluid.source_rates))
+    rho = float(outflow(scenario, place, fluid.rates))
     if fluid.window is not None and fluid.counters is not None:
         sol = counters_for(scenario, fluid.window[1], fluid.counters)
         fig = window_figures(scenario, sol, place, fluid.window, within)
@@ -178,26 +172,20 @@ def fluid_place(scenario: Scenario, fluid: FluidResult, place: str) -> FluidPlac
 
 
 def fluid_places(scenario: Scenario, fluid: FluidResult) -> dict[str, FluidPlace]:
-    """:func:`fluid_place` of every waiting place (:func:`desim.waiting_places`)."""
+    """:func:`fluid_place` of every waiting place (:func:`fluid.structure.waiting_places`)."""
     return {p: fluid_place(scenario, fluid, p) for p in waiting_places(scenario)}
 
 
 def fluid_busy(scenario: Scenario, fluid: FluidResult) -> dict[str, float]:
-    """Fluid busy fraction per pool: agents held at the fluid rates (Σ over the job places on the
-    pool's invariant of weight × mean hold × inflow) over staff; nan for a pool on no
+    """Fluid busy fraction per pool: agents held at the fluid rates (:func:`fluid.offered.
+    pool_work` at the places' inflows at those rates) over staff; nan for a pool on no
     invariant or without staff."""
-    from fluid.invariants import pool_invariants
-
-    invariants = pool_invariants(scenario)
+    work = pool_work(scenario, {p: inflow(scenario, p, fluid.rates, fluid.source_rates)
+                                for p in scenario.places})
     out = {}
     for r in scenario.pools:
-        inv, staff = invariants[r], fluid.staff.get(r, 0.0)
-        if not inv or staff <= 0:
-            out[r] = math.nan
-            continue
-        work = sum(w * scenario.places[p].hold_mean * place_inflow(scenario, fluid, p)
-                   for p, w in inv.items() if p in scenario.places)
-        out[r] = work / staff
+        staff = fluid.staff.get(r, 0.0)
+        out[r] = math.nan if math.isnan(work[r]) or staff <= 0 else work[r] / staff
     return out
 
 
@@ -218,22 +206,9 @@ def fluid_abandonment(scenario: Scenario, places: dict[str, FluidPlace],
 
 def simulated_output(scenario: Scenario, sim: SimulationResult) -> Estimate:
     """Total rate of the transitions that end jobs, per replication, as an estimate."""
-    ending = scenario.ending_transitions or tuple(scenario.transitions)
-    per_rep = np.sum([sim.raw("transition", q, "rate") for q in ending], axis=0)
+    per_rep = np.sum([sim.raw("transition", q, "rate") for q in output_transitions(scenario)],
+                     axis=0)
     return Estimate.from_values(per_rep)
-
-
-def simulated_abandonment(sim: SimulationResult) -> Estimate:
-    """Overall abandonment per replication: Σ abandoned / Σ (completed + abandoned) over the
-    sources (jobs that ended in the window), as an estimate."""
-    names = list(sim.sources)
-    if not names:
-        return Estimate.from_values([])
-    ab = np.sum([sim.raw("source", s, "abandoned") for s in names], axis=0)
-    done = np.sum([sim.raw("source", s, "completed") for s in names], axis=0)
-    ended = ab + done
-    share = np.where(ended > 0, ab / np.where(ended > 0, ended, 1.0), np.nan)
-    return Estimate.from_values(share)
 
 
 # --- the tables ----------------------------------------------------------------------------------
@@ -310,7 +285,7 @@ def gap_tables(scenario: Scenario, fluid: FluidResult, sim: SimulationResult) ->
     pool_rows = [[r, fluid.staff.get(r, math.nan), fluid.load.get(r, math.nan),
                   *_row(busy[r], sim.pools[r]["busy"])] for r in scenario.pools]
     output = simulated_output(scenario, sim)
-    abandonment = simulated_abandonment(sim)
+    abandonment = sim.overall_abandonment()
     totals = [["output_rate", *_row(fluid.output_rate, output)],
               ["abandonment", *_row(fluid_abandonment(scenario, places_fluid, fluid),
                                     abandonment)]]

@@ -12,17 +12,16 @@ import itertools
 import math
 from typing import Callable
 
-import numpy as np
 import pandas as pd
 
 from desim import Estimate, SimulationSettings, resolve_settings
-from fluid.counters import integrate_counters
 from fluid.phases import PhaseDiagram
 from fluid.scenario import Scenario
+from fluid.service_level import service_level_verdicts
 from fluid.staffing import with_staff
 
 from .sweep import Sweep
-from .staffing_search import ABANDONMENT, meets_targets, overall_abandonment, target_estimates
+from .staffing_search import ABANDONMENT, meets_targets, target_estimates
 
 __all__ = ["phase_overlay"]
 
@@ -42,32 +41,6 @@ def _integer_points(diagram: PhaseDiagram, max_points: int) -> list[tuple[int, .
     return list(itertools.product(*values))
 
 
-def _fluid_service_levels(scenario: Scenario) -> dict[str, float]:
-    """The fluid model's service level at every place with a target (patience ignored): 1 when
-    its fluid queue stays empty over the statistics window (every job taken at once); 0 when the
-    queue grows without bound (constant rates) or holds so much that every job waits longer than
-    the target's ``within`` (Little's law on the fluid queue); nan otherwise (a queue that
-    builds and drains within a day)."""
-    timed = scenario.has_time_variation
-    sol = integrate_counters(scenario, **({"horizon": scenario.run.horizon} if timed else {}))
-    out = {}
-    for place, target in scenario.targets.service.items():
-        w = sol.waiting[place]
-        tail = w[int(round(scenario.run.warmup / sol.dt)):] if timed else w[len(w) // 2:]
-        inflow = sum(sol.rates[q] for q in scenario.inputs_of(place))
-        inflow += sum(sol.source_rates[s] for s in scenario.sources_into(place))
-        tol = 1e-6 * (1.0 + inflow * sol.dt)
-        taken = sum(sol.rates[q] for q in scenario.outputs_of(place))
-        if tail.size == 0 or float(np.max(tail)) <= tol:
-            out[place] = 1.0
-        elif not timed and (tail[-1] - tail[len(tail) // 2] > tol
-                            or (taken > 0 and float(tail[-1]) / taken > target.within)):
-            out[place] = 0.0
-        else:
-            out[place] = math.nan
-    return out
-
-
 def phase_overlay(scenario: Scenario, diagram: PhaseDiagram,
                   settings: SimulationSettings | None = None, *, reps: int | None = None,
                   horizon: float | None = None, warmup: float | None = None,
@@ -85,11 +58,13 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram,
     the diagram's transitions (sim_mean, sim_low, sim_high, n; per the scenario's time unit),
     gap = (fluid − simulated mean) / simulated mean, rate_optimistic and optimistic (the fluid
     rate above the simulated interval); for every place with a service-level target:
-    ``<place>_sl_fluid`` (see :func:`_fluid_service_levels`), ``<place>_sl_mean``, ``_sl_low``,
-    ``_sl_high`` and ``_sl_goal``; sl_optimistic (some fluid service level above its simulated
-    interval); targets_met (every target holds with confidence, as in
+    ``<place>_sl_fluid`` (the fluid verdict of
+    :func:`fluid.service_level.service_level_verdicts`: 1, 0 or nan), ``<place>_sl_mean``,
+    ``_sl_low``, ``_sl_high`` and ``_sl_goal``; sl_optimistic (some fluid verdict above its
+    simulated interval); targets_met (every target holds with confidence, as in
     :func:`compare.study.staffing_search.meets_targets`; nan without targets);
-    abandonment_mean/_low/_high (all sources); unstable (replications stopped at the job limit).
+    abandonment_mean/_low/_high (all sources: :meth:`desim.SimulationResult.overall_abandonment`);
+    unstable (replications stopped at the job limit).
     With a run folder ``out``, each point keeps its replications in ``out/<a><A>-<b><B>``
     (``out/<a><A>`` with one axis)."""
     cfg = resolve_settings(scenario.run, settings, reps=reps, horizon=horizon, warmup=warmup,
@@ -111,7 +86,7 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram,
                 n=rate.n, gap=gap,
                 rate_optimistic=bool(math.isfinite(rate.high) and fluid > rate.high))
             estimates = target_estimates(scenario, sim)
-            fluid_sl = _fluid_service_levels(variant)
+            fluid_sl = service_level_verdicts(variant)
             sl_opt = False
             for place, target in targets.items():
                 est, fl = estimates[place], fluid_sl[place]
@@ -119,7 +94,7 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram,
                         f"{place}_sl_low": est.low, f"{place}_sl_high": est.high,
                         f"{place}_sl_goal": target.goal}
                 sl_opt |= bool(math.isfinite(fl) and math.isfinite(est.high) and fl > est.high)
-            ab = estimates.get(ABANDONMENT) or overall_abandonment(sim)
+            ab = estimates.get(ABANDONMENT) or sim.overall_abandonment()
             met = meets_targets(scenario, estimates) and not sim.unstable_replications
             row |= dict(targets_met=met if estimates else math.nan, sl_optimistic=sl_opt,
                         optimistic=row["rate_optimistic"],

@@ -38,10 +38,11 @@ import pandas as pd
 from desim import SimulationSettings, resolve_settings
 from fluid.analysis import throughput
 from fluid.errors import FieldError, ScenarioError
-from fluid.scenario import Scenario, with_changes
+from fluid.loading import with_changes
+from fluid.scenario import Scenario
 
 from .comparison import with_window
-from .gaps import fluid_abandonment, fluid_places, simulated_abandonment, simulated_output
+from .gaps import fluid_abandonment, fluid_places, simulated_output
 from .sweep import Sweep
 
 __all__ = ["GAP_METRICS", "ScaleFit", "ScaleResult", "fit_exponent", "scale_scenario",
@@ -258,7 +259,7 @@ def _scale_row(k: float, scaled: Scenario, fluid, sim, with_patience: bool) -> d
 
     places = fluid_places(scaled, fluid)
     f_ab = fluid_abandonment(scaled, places, fluid) if with_patience else math.nan
-    ab = simulated_abandonment(sim)
+    ab = sim.overall_abandonment()
     worst, worst_q = math.nan, ""
     for q, rate in fluid.rates.items():
         if rate > 0:

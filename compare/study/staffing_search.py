@@ -31,18 +31,18 @@ import math
 from dataclasses import dataclass, field
 from typing import Callable, Mapping
 
-import numpy as np
 import pandas as pd
 
 from desim import Estimate, SimulationSettings, resolve_settings
+from fluid.offered import offered_work
 from fluid.scenario import Scenario
-from fluid.staffing import FluidPlan, fluid_plan, offered_work, with_staff
+from fluid.staffing import FluidPlan, fluid_plan, with_staff
 
 from ..formulas.staffing import square_root_staffing
 from .sweep import Sweep
 
-__all__ = ["PlanTrial", "StaffingResult", "staff_search", "target_estimates",
-           "overall_abandonment", "meets_targets", "DEFAULT_BETA"]
+__all__ = ["PlanTrial", "StaffingResult", "staff_search", "target_estimates", "meets_targets",
+           "DEFAULT_BETA"]
 
 #: Safety factor of the square-root start (N = R + β√R; Halfin and Whitt 1981).
 DEFAULT_BETA = 0.5
@@ -162,24 +162,13 @@ def _num(x) -> float | None:
 # --- targets -------------------------------------------------------------------------------------
 
 
-def overall_abandonment(result) -> Estimate:
-    """Share of the jobs that ended in the window by abandoning, over all sources, per
-    replication (abandoned / (completed + abandoned)), as an :class:`~desim.Estimate`."""
-    abandoned = sum(result.raw("source", s, "abandoned") for s in result.sources)
-    completed = sum(result.raw("source", s, "completed") for s in result.sources)
-    ended = np.asarray(abandoned + completed, dtype=float)
-    share = np.full(ended.shape, np.nan)
-    np.divide(abandoned, ended, out=share, where=ended > 0)
-    return Estimate.from_values(share)
-
-
 def target_estimates(scenario: Scenario, result) -> dict[str, Estimate]:
     """Estimates of the scenario's targets from a :class:`desim.SimulationResult`: per
-    service-target place its ``served_within``; "abandonment" (all sources) when a maximum is
-    set."""
+    service-target place its ``served_within``; "abandonment" (all sources:
+    :meth:`desim.SimulationResult.overall_abandonment`) when a maximum is set."""
     out = {p: result.places[p]["served_within"] for p in scenario.targets.service}
     if scenario.targets.abandonment_max is not None:
-        out[ABANDONMENT] = overall_abandonment(result)
+        out[ABANDONMENT] = result.overall_abandonment()
     return out
 
 

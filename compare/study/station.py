@@ -53,8 +53,8 @@ import pandas as pd
 
 from desim import (Estimate, SettingsError, SimulationResult, SimulationSettings, replicate,
                    resolve_settings)
-from fluid.loading import load_scenario_text
-from fluid.scenario import RunSettings, Scenario, with_changes
+from fluid.loading import load_scenario_text, with_changes
+from fluid.scenario import RunSettings, Scenario
 
 from ..formulas.erlang import erlang_a_queue, erlang_b_loss, erlang_c_queue
 from ..formulas.priority import cobham_waits

@@ -11,7 +11,8 @@ per-interval table (``desim.replicate(..., interval=STEP)``), metric by metric:
 * ``queue`` (per waiting place): time average over the interval of the fluid jobs available and
   not yet taken (trapezoid rule on the grid, whose counters are piecewise linear);
 * ``service_level`` (per place with a target): share of the fluid that becomes available in the
-  interval and is taken within the target's ``within``. Jobs leave a place first-in first-out,
+  interval and is taken within the target's ``within``
+  (:func:`fluid.service_level.fifo_service_level`). Jobs leave a place first-in first-out,
   so a fluid particle that becomes available when the availability curve A(t) reaches level v
   is taken when the outflow curve D first reaches v; its wait is that time minus its own. Each
   grid step's increment of A is represented by its mid-point (exact when A and D are linear
@@ -31,23 +32,20 @@ import pandas as pd
 
 from fluid.counters import CounterSolution, integrate_counters
 from fluid.scenario import Scenario
+from fluid.service_level import fifo_service_level, place_curves
 
 __all__ = [
     "TRANSIENT_COLUMNS",
     "counters_for",
     "default_interval",
-    "fluid_curves",
     "fluid_interval_value",
     "fluid_queue_average",
-    "fluid_service_level",
     "transient_table",
     "window_figures",
 ]
 
 TRANSIENT_COLUMNS = ["interval", "start", "end", "metric", "name", "fluid", "mean", "low", "high",
                      "n"]
-# Relative slack when comparing a fluid level or a wait with a threshold (float noise only)
-_SLACK = 1e-9
 
 
 def default_interval(scenario: Scenario, horizon: float) -> float:
@@ -71,16 +69,6 @@ def _at(sol: CounterSolution, curve: np.ndarray, t: float) -> float:
     return float(np.interp(t, sol.times, curve))
 
 
-def fluid_curves(scenario: Scenario, sol: CounterSolution, place: str) -> tuple[np.ndarray,
-                                                                                np.ndarray]:
-    """``(A, D)`` for a job place on the grid: A(t) the fluid that has become available there by
-    t (after its hold), D(t) the fluid taken out of it by t."""
-    out = np.zeros_like(sol.times)
-    for q in scenario.outputs_of(place):
-        out = out + scenario.transitions[q].inputs[place] * sol.counters[q]
-    return sol.waiting[place] + out, out
-
-
 def fluid_queue_average(sol: CounterSolution, place: str, start: float, end: float) -> float:
     """Time-average fluid jobs available and waiting in ``place`` over ``[start, end]``."""
     if end <= start:
@@ -91,40 +79,6 @@ def fluid_queue_average(sol: CounterSolution, place: str, start: float, end: flo
     ys = np.concatenate([[_at(sol, sol.waiting[place], start)], sol.waiting[place][inside],
                          [_at(sol, sol.waiting[place], end)]])
     return float(np.trapezoid(ys, ts) / (end - start))
-
-
-def _first_reach(times: np.ndarray, curve: np.ndarray, levels: np.ndarray) -> np.ndarray:
-    """First time a nondecreasing piecewise-linear ``curve`` reaches each level (inf if never)."""
-    scale = max(1.0, float(np.abs(curve).max(initial=0.0)))
-    target = levels - _SLACK * scale
-    j = np.searchsorted(curve, target, side="left")
-    out = np.full(levels.shape, math.inf)
-    ok = j < len(curve)
-    first = ok & (j == 0)
-    out[first] = times[0]
-    mid = ok & (j > 0)
-    jm = j[mid]
-    lo, hi = curve[jm - 1], curve[jm]
-    frac = np.where(hi > lo, (target[mid] - lo) / np.where(hi > lo, hi - lo, 1.0), 1.0)
-    out[mid] = times[jm - 1] + np.clip(frac, 0.0, 1.0) * (times[jm] - times[jm - 1])
-    return out
-
-
-def fluid_service_level(scenario: Scenario, sol: CounterSolution, place: str, within: float,
-                        start: float, end: float) -> float:
-    """Share of the fluid becoming available in ``place`` during ``(start, end]`` that is taken
-    within ``within`` time units (nan when nothing becomes available)."""
-    avail, taken = fluid_curves(scenario, sol, place)
-    t = sol.times
-    mids = (t[:-1] + t[1:]) / 2
-    sel = (mids > start) & (mids < end)
-    amount = np.diff(avail)[sel]
-    if amount.sum() <= 0:
-        return math.nan
-    levels = ((avail[:-1] + avail[1:]) / 2)[sel]
-    waits = _first_reach(t, taken, levels) - mids[sel]
-    ok = waits <= within * (1 + _SLACK) + _SLACK
-    return float(amount[ok].sum() / amount.sum())
 
 
 def fluid_interval_value(scenario: Scenario, sol: CounterSolution, metric: str, name: str,
@@ -144,7 +98,7 @@ def fluid_interval_value(scenario: Scenario, sol: CounterSolution, metric: str, 
         return fluid_queue_average(sol, name, start, end)
     if metric == "service_level" and name in scenario.targets.service:
         within = scenario.targets.service[name].within
-        return fluid_service_level(scenario, sol, name, within, start, end)
+        return fifo_service_level(scenario, sol, name, within, start, end)
     return math.nan
 
 
@@ -181,7 +135,7 @@ def window_figures(scenario: Scenario, sol: CounterSolution, place: str, window:
     law, queue / inflow), ``served_within`` (when ``within`` is given). Used for time-varying
     scenarios, where no steady state exists."""
     start, end = float(window[0]), float(window[1])
-    avail, taken = fluid_curves(scenario, sol, place)
+    avail, taken = place_curves(scenario, sol, place)
     length = end - start
     inflow = (_at(sol, avail, end) - _at(sol, avail, start)) / length
     outflow = (_at(sol, taken, end) - _at(sol, taken, start)) / length
@@ -189,5 +143,5 @@ def window_figures(scenario: Scenario, sol: CounterSolution, place: str, window:
     wait = queue / inflow if inflow > 0 else 0.0
     out = {"inflow": inflow, "outflow": outflow, "queue": queue, "wait": wait}
     if within is not None:
-        out["served_within"] = fluid_service_level(scenario, sol, place, within, start, end)
+        out["served_within"] = fifo_service_level(scenario, sol, place, within, start, end)
     return out

@@ -13,6 +13,7 @@ import desim
 from desim import ConservationError, replicate, run_replication
 from desim.engine import Engine
 from desim.net import build_net
+from fluid.structure import waiting_places
 
 from .conftest import fired
 
@@ -341,7 +342,7 @@ def test_littles_law_on_every_waiting_place_of_the_contact_net(net):
     s = net(CONTACT)
     res = replicate(s, reps=10, horizon=2000, warmup=100, workers=2)
     length = 2000 - 100
-    for place in desim.waiting_places(s):
+    for place in waiting_places(s):
         q = res.raw("place", place, "queue")
         diff = q - res.raw("place", place, "left") / length * res.raw("place", place, "wait")
         assert abs(diff.mean()) <= max(res.places[place]["queue"].half_width, 1e-12), place

@@ -11,7 +11,8 @@ import warnings
 import pytest
 
 from fluid import load_scenario
-from fluid.analysis import offered_rates, pool_loads, throughput
+from fluid.analysis import throughput
+from fluid.offered import offered_rates, pool_loads
 
 from . import nets
 from .test_lp import EXITLESS

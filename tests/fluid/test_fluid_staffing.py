@@ -19,8 +19,9 @@ import pytest
 
 from fluid import load_scenario
 from fluid.lp import throughput_lp
-from fluid.scenario import with_changes
-from fluid.staffing import fluid_plan, offered_work, with_staff
+from fluid.loading import with_changes
+from fluid.offered import offered_work
+from fluid.staffing import fluid_plan, with_staff
 
 from . import nets
 

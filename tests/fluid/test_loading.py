@@ -17,6 +17,7 @@ from hypothesis import strategies as st
 
 from fluid import ScenarioError, load_scenario, load_scenario_text, with_changes
 from fluid.loading import ScenarioWarning
+from fluid.structure import route_share
 
 ROOT = pathlib.Path(__file__).resolve().parents[2]
 CONFIGS = sorted((ROOT / "configs").glob("*.yaml"))
@@ -73,7 +74,7 @@ def test_base_is_valid_and_structure():
     assert s.inputs_of("agents") == ("close", "second_done")
     assert s.job_input("answer") == "queue" and s.job_output("answer") == "talk"
     assert s.ending_transitions == ("close", "second_done")
-    assert s.proportion("talk", "escalate") == pytest.approx(0.3)
+    assert route_share(s, "talk", "escalate") == pytest.approx(0.3)
     assert s.places["second"].hold.mean == 1.5 and s.places["second"].hold.cv == 0
     assert s.targets.service["queue"].goal == 0.8
     assert s.targets.abandonment_max == 0.1

@@ -17,7 +17,8 @@ from hypothesis import strategies as st
 
 from fluid.counters import integrate_counters
 from fluid.errors import SolverError
-from fluid.lp import places_without_exit, throughput_lp
+from fluid.lp import throughput_lp
+from fluid.structure import places_without_exit
 
 from . import nets
 

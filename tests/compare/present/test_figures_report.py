@@ -125,8 +125,9 @@ def test_pooled_waits_from_fake_runs():
 
 
 def test_pooled_waits_reads_desim_records():
-    from desim import replicate, waiting_places
+    from desim import replicate
     from fluid.loading import load_scenario
+    from fluid.structure import waiting_places
 
     scenario = load_scenario(Path(__file__).parents[3] / "configs" / "single-station.yaml")
     result = replicate(scenario, reps=2, horizon=60, warmup=10, workers=1, record_waits=True)

@@ -1,0 +1,114 @@
+"""What the arrivals offer the net when no pool limits: inflow-driven rates, work and loads.
+
+The *inflow-driven* (offered) rates are what every transition would carry if every pool had
+unlimited staff: the jobs entering a place split over its outputs by :func:`fluid.structure.
+unlimited_share`, and the flow balance ``x = λ + Pᵀx`` over the job places gives each place's
+inflow. A pool's *work* at given inflows is the number of its agents busy: Σ over the job places
+on the pool's conservation invariant (:func:`fluid.invariants.pool_invariants`) of weight × mean
+hold × inflow. Its *load* is the offered work over its staff.
+
+These are derived facts of the net, read by the fluid analysis, phase diagrams, fluid staffing,
+the gap tables and the staffing search; they live here and in :mod:`fluid.structure` only.
+Rates are per the scenario's time unit, work in agents.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Mapping
+
+import numpy as np
+
+from .invariants import pool_invariants
+from .scenario import Scenario
+from .structure import places_that_can_end, unlimited_share
+
+__all__ = ["offered_rates", "offered_work", "pool_loads", "pool_work"]
+
+
+def offered_rates(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
+    """Inflow-driven rates: ``(transition rates, job-place inflows)`` per time unit, as if every
+    pool were unlimited. Sources with a profile or trace count at their mean rate over
+    ``horizon`` (default: the scenario's run horizon). A place whose jobs can never end (every
+    path from it leads back into a circuit of places) has an unbounded inflow, reported as
+    ``inf``, as soon as any job reaches it."""
+    h = scenario.run.horizon if horizon is None else horizon
+    places = list(scenario.places)
+    moves = [(scenario.job_input(q), scenario.job_output(q), q) for q in scenario.transitions]
+    moves = [(a, b, q, unlimited_share(scenario, a, q)) for a, b, q in moves]
+    can_end = places_that_can_end(scenario, unlimited_share)
+    open_places = [p for p in places if p in can_end]
+    idx = {p: i for i, p in enumerate(open_places)}
+    n = len(open_places)
+    lam = {p: 0.0 for p in places}
+    for src in scenario.sources.values():
+        lam[src.into] += src.arrivals.mean_rate(h)
+    # x = λ + Pᵀx over the places whose jobs can end (P is then substochastic and I − Pᵀ regular)
+    pt = np.zeros((n, n))
+    for a, b, q, w in moves:
+        if a in idx and b in idx:
+            pt[idx[b], idx[a]] += w
+    x = np.linalg.solve(np.eye(n) - pt, np.array([lam[p] for p in open_places])) if n else []
+    inflow = {p: float(x[idx[p]]) for p in open_places}
+    # the rest: reached (inflow > 0) means jobs pile up and circulate without bound
+    reached = {p for p in places if p not in idx and lam[p] > 0}
+    reached |= {b for a, b, q, w in moves if a in idx and b is not None and b not in idx
+                and w > 0 and inflow[a] > 0}
+    grew = True
+    while grew:
+        grew = False
+        for a, b, q, w in moves:
+            if a in reached and b is not None and b not in reached and w > 0:
+                reached.add(b)
+                grew = True
+    for p in places:
+        if p not in idx:
+            inflow[p] = math.inf if p in reached else 0.0
+    rates = {}
+    for a, b, q, w in moves:
+        rates[q] = 0.0 if w == 0 or inflow[a] == 0 else w * inflow[a]
+    return rates, {p: inflow[p] for p in places}
+
+
+def pool_work(scenario: Scenario, inflow: Mapping[str, float]) -> dict[str, float]:
+    """Pool -> agents busy when the job places receive ``inflow`` (place -> jobs per time unit):
+    Σ over the job places on the pool's conservation invariant of weight × mean hold × inflow
+    (places with no hold or no inflow add nothing, so an unbounded inflow into a place that
+    holds no agent does not count). nan for a pool on no invariant."""
+    invariants = pool_invariants(scenario)
+    work = {}
+    for r in scenario.pools:
+        inv = invariants[r]
+        if not inv:
+            work[r] = math.nan
+            continue
+        work[r] = float(sum(w * scenario.places[p].hold_mean * inflow[p]
+                            for p, w in inv.items()
+                            if p in scenario.places and scenario.places[p].hold_mean > 0
+                            and inflow[p] > 0))
+    return work
+
+
+def offered_work(scenario: Scenario, horizon: float | None = None) -> dict[str, float]:
+    """Pool -> agents busy at the inflow-driven rates (offered load R, in agents; see
+    :func:`pool_work`). nan for a pool on no invariant. Profiles count at their mean rate over
+    ``horizon`` (default the run horizon)."""
+    return pool_work(scenario, offered_rates(scenario, horizon)[1])
+
+
+def pool_loads(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
+    """``(load, staff)`` per pool: offered work (:func:`offered_work`) over staff (mean staff
+    over ``horizon`` with a schedule; default the run horizon). ``inf`` when a pool with no
+    staff is offered work, nan for a pool on no invariant."""
+    h = scenario.run.horizon if horizon is None else horizon
+    work = offered_work(scenario, h)
+    load, staff = {}, {}
+    for r, pool in scenario.pools.items():
+        staff[r] = pool.mean_staff(h)
+        if math.isnan(work[r]):
+            load[r] = math.nan
+        elif staff[r] > 0:
+            load[r] = work[r] / staff[r]
+        else:
+            load[r] = math.inf if work[r] > 0 else 0.0
+    return load, staff
