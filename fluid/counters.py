@@ -18,31 +18,36 @@ is taken (every transition fires as early as it can). On the grid ``t_k = k·dt`
   sweeps start from an upper bound and repeat until nothing changes (capped; the number of steps
   that hit the cap is reported).
 
-All times are in the scenario's time unit. The fluid model ignores patience (abandonment is
-applied later by Whitt's fluid model in ``compare``).
+With ``model=WITH_ABANDONMENT`` (see :mod:`fluid.flat_net`) the same equations carry the fluid
+model with abandonment: a hold that is not deterministic releases its jobs as its distribution
+says, and a waiting place with patience loses content by age (Liu and Whitt 2011, 2012); the
+default ``COUNTERS`` is §4.1 as written (holds as delays of their means, patience ignored). The
+step loop runs in :mod:`fluid.kernel` (compiled with numba when installed).
+
+All times are in the scenario's time unit.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from fractions import Fraction
 from functools import reduce
 from typing import Mapping
 
 import numpy as np
 
+from .flat_net import COUNTERS, WITH_ABANDONMENT, FluidModel, _shift, build
 from .scenario import Scenario
-from .structure import inflow, outflow, route_share
+from .structure import inflow, outflow
 
-__all__ = ["CounterSolution", "integrate_counters", "choose_step", "default_horizon"]
+__all__ = ["CounterSolution", "integrate_counters", "choose_step", "default_horizon", "COUNTERS",
+           "WITH_ABANDONMENT", "FluidModel"]
 
 MAX_POINTS = 200_000
 MIN_POINTS = 2_000
-MAX_SWEEPS = 50
 ROUNDING_TARGET = 1e-4  # accepted worst relative rounding of a hold when no step divides them all
 _NICE = sorted({2**a * 5**b for a in range(12) for b in range(6)})
-_INF = math.inf
 
 
 @dataclass(frozen=True)
@@ -56,7 +61,13 @@ class CounterSolution:
     (per time unit) read from the last part of the horizon, exact over a whole number of periods
     when the increments have become periodic (``period``, else None and a smoothed slope);
     ``rounding``: worst relative rounding of a holding time to the grid; ``unconverged_steps``:
-    grid steps whose same-time sweeps hit the cap (0 when the zero-delay graph is acyclic).
+    grid steps whose same-time sweeps hit the cap (0 when the zero-delay graph is acyclic);
+    ``model``: which fluid equations (:data:`fluid.flat_net.COUNTERS` or ``WITH_ABANDONMENT``),
+    in words. With abandonment: ``abandoned``: impatient place -> cumulative amount that
+    abandoned there; ``abandonment_rates``: their long-run rates; ``head_wait``: impatient place
+    -> age of the oldest job still waiting (time units; nan when nobody waits), the fluid wait
+    of a job taken at that time (first come, first served). ``waiting`` is then net of
+    abandonment.
     """
 
     times: np.ndarray
@@ -70,6 +81,10 @@ class CounterSolution:
     rounding: float
     period: float | None
     unconverged_steps: int
+    model: str = COUNTERS.name
+    abandoned: dict[str, np.ndarray] = field(default_factory=dict)
+    abandonment_rates: dict[str, float] = field(default_factory=dict)
+    head_wait: dict[str, np.ndarray] = field(default_factory=dict)
 
     @property
     def horizon(self) -> float:
@@ -193,48 +208,6 @@ def _staff_on_grid(scenario, pool, t, staff, extra_staff) -> np.ndarray:
     return np.asarray(sched.staff, dtype=float)[idx] + extra
 
 
-def _shift(a: np.ndarray, d: int) -> np.ndarray:
-    """``a`` delayed by ``d`` steps (zero before the start)."""
-    if d == 0:
-        return a
-    out = np.zeros_like(a)
-    if d < len(a):
-        out[d:] = a[:-d]
-    return out
-
-
-# --- order of evaluation within a step -----------------------------------------------------------
-
-
-def _order(names: list[str], edges: dict[str, set[str]]) -> tuple[list[str], bool]:
-    """Kahn's topological order of ``names`` (edge j -> q: q reads j at the same step); on a
-    cycle, continue with the remaining node of fewest unresolved inputs and report ``True``."""
-    indeg = {q: 0 for q in names}
-    for j, succ in edges.items():
-        for q in succ:
-            if q != j:
-                indeg[q] += 1
-    cyclic = any(j in succ for j, succ in edges.items())
-    pos = {q: i for i, q in enumerate(names)}
-    done: list[str] = []
-    left = set(names)
-    while left:
-        ready = [q for q in left if indeg[q] == 0]
-        if not ready:
-            cyclic = True
-            ready = [min(left, key=lambda q: (indeg[q], pos[q]))]
-        q = min(ready, key=pos.__getitem__)
-        left.remove(q)
-        done.append(q)
-        for s in edges.get(q, ()):
-            if s in left and s != q:
-                indeg[s] -= 1
-    return done, cyclic
-
-
-# --- the integration -----------------------------------------------------------------------------
-
-
 def integrate_counters(
     scenario: Scenario,
     *,
@@ -243,6 +216,7 @@ def integrate_counters(
     staff: Mapping[str, float] | None = None,
     extra_staff: Mapping[str, float] | None = None,
     max_points: int = MAX_POINTS,
+    model: FluidModel = COUNTERS,
 ) -> CounterSolution:
     """Integrate the counter equations of ``scenario`` on ``[0, horizon]``.
 
@@ -251,116 +225,51 @@ def integrate_counters(
     hand-over) it is extended up to 16-fold within ``max_points``. ``dt`` defaults to
     :func:`choose_step`. ``staff`` replaces a pool's staff (or schedule) by a constant;
     ``extra_staff`` adds agents to a pool in every interval (used to test whether a pool is a
-    bottleneck).
+    bottleneck). ``model``: :data:`fluid.flat_net.COUNTERS` (design.md §4.1 as written) or
+    :data:`fluid.flat_net.WITH_ABANDONMENT`.
     """
     if horizon is not None:
         if dt is None:
             dt = choose_step(scenario, horizon, max_points=max_points)
-        return _integrate(scenario, dt, horizon, staff, extra_staff, max_points)
+        return _integrate(scenario, dt, horizon, staff, extra_staff, max_points, model)
     base = scenario.run.horizon
     if dt is None:
         dt = choose_step(scenario, base, max_points=max_points)
     limit = max(base, dt * (max_points - 1))
     horizon = max(base, min(default_horizon(scenario), limit))
-    sol = _integrate(scenario, dt, horizon, staff, extra_staff, max_points)
+    sol = _integrate(scenario, dt, horizon, staff, extra_staff, max_points, model)
     if scenario.has_time_variation:
         return sol
     for factor in (4, 16):
         if sol.period is not None or horizon >= limit:
             break
         horizon = min(horizon * factor, limit)
-        sol = _integrate(scenario, dt, horizon, staff, extra_staff, max_points)
+        sol = _integrate(scenario, dt, horizon, staff, extra_staff, max_points, model)
     return sol
 
 
-def _integrate(scenario, dt, horizon, staff, extra_staff, max_points) -> CounterSolution:
-    if dt <= 0 or horizon <= 0:
+def _integrate(scenario, dt, horizon, staff, extra_staff, max_points,
+               model: FluidModel = COUNTERS) -> CounterSolution:
+    if not (dt > 0 and horizon > 0 and math.isfinite(dt) and math.isfinite(horizon)):
         raise ValueError("dt and horizon must be positive")
     n = int(math.floor(horizon / dt + 1e-9)) + 1
     if n > max_points:
         raise ValueError(f"{n} grid points exceed max_points={max_points}; give a larger dt")
     t = dt * np.arange(n)
-
-    trans = list(scenario.transitions)
-    delay = {p: (max(1, round(pl.hold_mean / dt)) if pl.hold_mean > 0 else 0)
-             for p, pl in scenario.places.items()}
-    delay.update({p: 0 for p in scenario.pools})
-    rounding = _worst_rounding(_holds(scenario), dt)
-    pad = max(delay.values(), default=0) + 1
-
     src_z = {s: _source_counter(scenario, s, t) for s in scenario.sources}
     level = {p: _staff_on_grid(scenario, p, t, staff, extra_staff) for p in scenario.pools}
-    # M_p(t_k) plus what sources put into p by t_k − τ_p: everything known before the loop
-    base = {}
-    for p in (*scenario.places, *scenario.pools):
-        b = level[p].copy() if p in level else np.zeros(n)
-        for s in scenario.sources_into(p):
-            b += _shift(src_z[s], delay[p])
-        base[p] = b.tolist()
-
-    Z = {q: [0.0] * (n + pad) for q in trans}
-    edges: dict[str, set[str]] = {q: set() for q in trans}
-    specs: dict[str, list] = {}
-    job_specs: dict[str, tuple] = {}
-    for q in trans:
-        specs[q] = []
-        for p, a in scenario.transitions[q].inputs.items():
-            d = delay[p]
-            terms = [(Z[c], float(scenario.transitions[c].outputs[p]), pad - d)
-                     for c in scenario.inputs_of(p)]
-            if d == 0:
-                for c in scenario.inputs_of(p):
-                    edges[c].add(q)
-            plain = tuple(terms)
-            order = scenario.priority_order(p)
-            if order:
-                i = order.index(q)
-                for j, other in enumerate(order):
-                    if j == i:
-                        continue
-                    w = -float(scenario.transitions[other].inputs[p])
-                    terms.append((Z[other], w, pad if j < i else pad - 1))
-                    if j < i:
-                        edges[other].add(q)
-            spec = (base[p], route_share(scenario, p, q) / float(a), tuple(terms))
-            specs[q].append(spec)
-            if scenario.is_job_place(p):
-                job_specs[q] = (base[p], spec[1], plain)
-    order, cyclic = _order(trans, edges)
-    plan = [(Z[q], specs[q]) for q in order]
-    unconverged = 0
-
-    if not cyclic:
-        for k in range(n):
-            kk = k + pad
-            for zq, qspecs in plan:
-                best = _INF
-                for bl, scale, terms in qspecs:
-                    s = bl[k]
-                    for zl, c, off in terms:
-                        s += c * zl[k + off]
-                    v = s * scale
-                    if v < best:
-                        best = v
-                prev = zq[kk - 1]
-                zq[kk] = best if best > prev else prev
-    else:
-        # feeders of a job place without hold come first (such places form no circuit)
-        job_edges = {c: set() for c in trans}
-        for q in trans:
-            p = scenario.job_input(q)
-            if delay[p] == 0:
-                for c in scenario.inputs_of(p):
-                    job_edges[c].add(q)
-        job_order, job_cyclic = _order(trans, job_edges)
-        if job_cyclic:
-            raise ValueError("zero-time circuit of job places: the counters have no solution")
-        job_plan = [(Z[q], job_specs[q]) for q in job_order]
-        unconverged = _integrate_cyclic(n, pad, plan, job_plan)
-
-    counters = {q: np.asarray(Z[q][pad:]) for q in trans}
-    markings, waiting = _markings(scenario, counters, src_z, level, delay, n)
-    rates, srates, period = _long_run(counters, src_z, dt)
+    flat = build(scenario, dt, t, sources=src_z, levels=level, model=model)
+    unconverged = flat.run()
+    counters = {q: flat.row(r).copy() for q, r in flat.rows.items()}
+    abandoned = {p: flat.row(r).copy() for p, r in flat.abandon_rows.items()}
+    markings, waiting = _markings(scenario, flat, counters, src_z, level, abandoned, n)
+    hol = {}
+    for i, p in enumerate(flat.waiting_places):
+        age = flat.arrays["hol_age"][i].astype(float) * dt
+        hol[p] = np.where(flat.arrays["hol_age"][i] >= 0, age, np.nan)
+    rates, srates, period = _long_run({**counters, **{f"\0{p}": a for p, a in abandoned.items()}},
+                                      src_z, dt)
+    ab_rates = {p: rates.pop(f"\0{p}") for p in abandoned}
     return CounterSolution(
         times=t,
         dt=float(dt),
@@ -370,61 +279,42 @@ def _integrate(scenario, dt, horizon, staff, extra_staff, max_points) -> Counter
         waiting=waiting,
         rates=rates,
         source_rates=srates,
-        rounding=rounding,
+        rounding=_worst_rounding(_holds(scenario), dt),
         period=period,
         unconverged_steps=unconverged,
+        model=model.name,
+        abandoned=abandoned,
+        abandonment_rates=ab_rates,
+        head_wait=hol,
     )
 
 
-def _integrate_cyclic(n: int, pad: int, plan: list, job_plan: list) -> int:
-    """Step loop when same-time dependencies form a cycle: start each step from an upper bound
-    (each transition limited by its job place alone, fed by upper bounds) and sweep until no
-    value changes. Returns the number of steps that hit the sweep cap."""
-    unconverged = 0
-    for k in range(n):
-        kk = k + pad
-        for zq, (bl, scale, terms) in job_plan:
-            s = bl[k]
-            for zl, c, off in terms:
-                s += c * zl[k + off]
-            v = s * scale
-            prev = zq[kk - 1]
-            zq[kk] = v if v > prev else prev
-        for _ in range(MAX_SWEEPS):
-            changed = False
-            for zq, qspecs in plan:
-                best = _INF
-                for bl, scale, terms in qspecs:
-                    s = bl[k]
-                    for zl, c, off in terms:
-                        s += c * zl[k + off]
-                    v = s * scale
-                    if v < best:
-                        best = v
-                prev = zq[kk - 1]
-                new = best if best > prev else prev
-                old = zq[kk]
-                if abs(new - old) > 1e-12 * (1.0 + abs(old)):
-                    changed = True
-                zq[kk] = new
-            if not changed:
-                break
-        else:
-            unconverged += 1
-    return unconverged
-
-
-def _markings(scenario, counters, src_z, level, delay, n):
+def _markings(scenario, flat, counters, src_z, level, abandoned, n):
+    """Tokens in every place and pool, and jobs available but not yet taken in every job place
+    (for an impatient place: net of what abandoned)."""
     markings: dict[str, np.ndarray] = {}
     waiting: dict[str, np.ndarray] = {}
+    lost_into: dict[str, np.ndarray] = {}
+    for p, a in abandoned.items():
+        to = scenario.places[p].abandon_to
+        if to is not None:
+            lost_into[to] = lost_into.get(to, 0.0) + a
     for p in (*scenario.pools, *scenario.places):
         into = np.zeros(n) + inflow(scenario, p, counters, src_z)
         out = np.zeros(n) + outflow(scenario, p, counters)
         if p in level:
             markings[p] = level[p] + into - out
+            continue
+        into = into + lost_into.get(p, 0.0)
+        if p in abandoned:
+            out = out + abandoned[p]
+        markings[p] = into - out
+        if p in flat.avail_rows:
+            waiting[p] = flat.row(flat.avail_rows[p]) - out
+        elif p in flat.distributed:
+            waiting[p] = flat.row(flat.hold_rows[p]) - out
         else:
-            markings[p] = into - out
-            waiting[p] = _shift(into, delay[p]) - out
+            waiting[p] = _shift(into, flat.delay[p]) - out
     return markings, waiting
 
 
