@@ -28,15 +28,18 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from fluid.scenario import Scenario
 
 from .engine import Engine
 from .net import Net, build_net
 from .warmup import MserResult, mser5
+
+if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is slow)
+    import pandas as pd
 
 __all__ = ["RunResult", "run_replication", "DEFAULT_MAX_JOBS", "DEFAULT_SAMPLES", "check_settings",
            "waiting_places"]
@@ -195,6 +198,8 @@ def _window_stats(scenario: Scenario, net: Net, delta: np.ndarray, length: float
 
 
 def _interval_table(scenario: Scenario, net: Net, times: list[float], snaps: list[np.ndarray]):
+    import pandas as pd
+
     targets = tuple(scenario.targets.service)
     waiting = waiting_places(scenario)
     rows = []

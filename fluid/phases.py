@@ -39,16 +39,17 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass
-from typing import Iterable, Mapping, Sequence
+from typing import TYPE_CHECKING, Iterable, Mapping, Sequence
 
 import numpy as np
-import pandas as pd
-from scipy.optimize import linprog
 
 from .analysis import offered_rates
-from .lp import places_without_exit, throughput_lp
+from .lp import linprog, places_without_exit, throughput_lp
 from .scenario import Scenario
 from .staffing import offered_work
+
+if TYPE_CHECKING:  # pandas is imported by the table methods only (importing it is slow)
+    import pandas as pd
 
 __all__ = ["Piece", "GridPoint", "PhaseDiagram", "phase_diagram", "MATCH_TOLERANCE"]
 
@@ -231,6 +232,8 @@ class PhaseDiagram:
     def to_frame(self) -> pd.DataFrame:
         """LP method: one row per piece (piece, const, coef_<axis> per axis, label). Counters
         grid: one row per point (the axis pools as column names, rate, label)."""
+        import pandas as pd
+
         if self.method == "lp":
             rows = [(i, p.const, *(p.coef[x] for x in self.axes), p.label)
                     for i, p in enumerate(self.pieces)]

@@ -31,11 +31,9 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
-from typing import Mapping
+from typing import TYPE_CHECKING, Mapping
 
 import numpy as np
-import pandas as pd
-from scipy.optimize import Bounds, LinearConstraint, milp
 
 from .analysis import offered_rates
 from .counters import integrate_counters
@@ -43,6 +41,9 @@ from .errors import SolverError
 from .invariants import pool_invariants
 from .lp import places_without_exit, throughput_lp
 from .scenario import FrozenMap, Scenario, with_changes
+
+if TYPE_CHECKING:  # pandas is imported by the table methods only (importing it is slow)
+    import pandas as pd
 
 __all__ = ["FluidPlan", "fluid_plan", "offered_work", "with_staff", "plan_view"]
 
@@ -90,6 +91,8 @@ class FluidPlan:
 
     def to_frame(self) -> pd.DataFrame:
         """One row per pool: pool, staff, cost_per_agent, cost, work, scenario_staff."""
+        import pandas as pd
+
         rows = [(p, n, self.costs[p], self.costs[p] * n, self.work[p], self.scenario_staff[p])
                 for p, n in self.staff.items()]
         return pd.DataFrame(rows, columns=["pool", "staff", "cost_per_agent", "cost", "work",
@@ -261,6 +264,8 @@ def fluid_plan(scenario: Scenario, *, costs: Mapping[str, float] | None = None) 
     integrality = np.array([1] * len(pools) + [0] * (len(trans) + len(srcs)))
     lower = np.array([0.0] * len(pools) + [-np.inf] * (len(trans) + len(srcs)))
     upper = np.array([np.inf] * (len(pools) + len(trans)) + [0.0] * len(srcs))
+    from scipy.optimize import LinearConstraint  # (here: importing scipy.optimize is slow)
+
     constraints = [LinearConstraint(np.array(rows), -np.inf, np.array(rhs))] if rows else []
     res = _solve(cost, integrality, lower, upper, constraints, scenario)
     if any(c == 0 for c in costs.values()) and len(pools):
@@ -294,6 +299,8 @@ def fluid_plan(scenario: Scenario, *, costs: Mapping[str, float] | None = None) 
 
 
 def _solve(cost, integrality, lower, upper, constraints, scenario):
+    from scipy.optimize import Bounds, milp
+
     res = milp(cost, integrality=integrality, bounds=Bounds(lower, upper),
                constraints=constraints, options={"mip_rel_gap": 0.0})
     if res.status != 0 or res.x is None:
