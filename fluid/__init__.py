@@ -1,7 +1,9 @@
 """fluid: the scenario model and the deterministic (fluid) semantics of a timed Petri net.
 
-Public API: :func:`load_scenario`, :func:`load_scenario_text`, :class:`Scenario`,
-:func:`with_changes`, :func:`throughput` and the error types.
+Public API (design.md §5): :func:`load_scenario`, :func:`load_scenario_text`, :class:`Scenario`,
+:func:`with_changes`, :func:`throughput` (-> :class:`FluidResult`), :func:`phase_diagram`
+(-> :class:`PhaseDiagram`), :func:`staff` (the fluid staffing plan, -> :class:`FluidPlan`) and
+the error types. Each result has ``to_frame()``, a tidy pandas table.
 
 The names are imported on first use (PEP 562), so ``import fluid`` costs next to nothing and a
 command pays only for what it calls (``throughput`` brings in the LP and scipy.optimize when it
@@ -14,13 +16,17 @@ import typing as _typing
 
 #: public name -> (module of this package, name there)
 _EXPORTS = {
+    "FluidPlan": ("staffing", "FluidPlan"),
     "FluidResult": ("analysis", "FluidResult"),
+    "PhaseDiagram": ("phases", "PhaseDiagram"),
     "Scenario": ("scenario", "Scenario"),
     "ScenarioError": ("errors", "ScenarioError"),
     "ScenarioWarning": ("loading", "ScenarioWarning"),
     "SolverError": ("errors", "SolverError"),
     "load_scenario": ("loading", "load_scenario"),
     "load_scenario_text": ("loading", "load_scenario_text"),
+    "phase_diagram": ("phases", "phase_diagram"),
+    "staff": ("staffing", "fluid_plan"),
     "throughput": ("analysis", "throughput"),
     "with_changes": ("scenario", "with_changes"),
 }
@@ -46,4 +52,7 @@ if _typing.TYPE_CHECKING:  # what type checkers and editors see
     from .analysis import FluidResult, throughput
     from .errors import ScenarioError, SolverError
     from .loading import ScenarioWarning, load_scenario, load_scenario_text
+    from .phases import PhaseDiagram, phase_diagram
     from .scenario import Scenario, with_changes
+    from .staffing import FluidPlan
+    from .staffing import fluid_plan as staff

@@ -90,6 +90,27 @@ class FluidPlan:
         }
 
     def to_frame(self) -> pd.DataFrame:
+        """Tidy table, one row per figure: columns kind, name, metric, value.
+
+        kind "pool": ``staff`` (the plan's agents), ``cost_per_agent``, ``cost``, ``work``
+        (offered load, agents; nan on no invariant), ``scenario_staff``; kind "transition":
+        ``rate``, the inflow-driven rate the plan carries (per time unit); kind "plan" (name:
+        the scenario): ``cost`` and ``recheck``. One row per pool instead: :meth:`wide_frame`."""
+        import pandas as pd
+
+        rows = []
+        for p, n in self.staff.items():
+            rows += [("pool", p, "staff", float(n)),
+                     ("pool", p, "cost_per_agent", float(self.costs[p])),
+                     ("pool", p, "cost", float(self.costs[p] * n)),
+                     ("pool", p, "work", float(self.work[p])),
+                     ("pool", p, "scenario_staff", float(self.scenario_staff[p]))]
+        rows += [("transition", q, "rate", float(r)) for q, r in self.rates.items()]
+        rows += [("plan", self.scenario_name, "cost", float(self.cost)),
+                 ("plan", self.scenario_name, "recheck", float(self.recheck))]
+        return pd.DataFrame(rows, columns=["kind", "name", "metric", "value"])
+
+    def wide_frame(self) -> pd.DataFrame:
         """One row per pool: pool, staff, cost_per_agent, cost, work, scenario_staff."""
         import pandas as pd
 
