@@ -102,14 +102,18 @@ def test_empirical_moments_and_cdf():
 
 
 def test_parsing_builds_each_distribution():
-    assert parse_distribution(3, "h") == Deterministic(3.0)
-    assert parse_distribution({"dist": "exponential", "mean": 2}, "h") == Exponential(2.0)
-    assert parse_distribution({"dist": "lognormal", "mean": 4, "cv": 0.8}, "h") == Lognormal(4, 0.8)
-    assert parse_distribution({"dist": "gamma", "mean": 7, "cv": 0.6}, "h") == Gamma(7, 0.6)
-    assert parse_distribution({"dist": "erlang", "mean": 3, "k": 4}, "h") == Erlang(3, 4)
-    assert parse_distribution({"dist": "uniform", "low": 1, "high": 3}, "h") == Uniform(1, 3)
-    assert parse_distribution({"dist": "weibull", "mean": 2, "shape": 1.5}, "h") == Weibull(2, 1.5)
-    assert parse_distribution({"dist": "empirical", "values": [1, 2]}, "h") == Empirical((1, 2))
+    cases = [
+        (3, Deterministic(3.0)),
+        ({"dist": "exponential", "mean": 2}, Exponential(2.0)),
+        ({"dist": "lognormal", "mean": 4, "cv": 0.8}, Lognormal(4, 0.8)),
+        ({"dist": "gamma", "mean": 7, "cv": 0.6}, Gamma(7, 0.6)),
+        ({"dist": "erlang", "mean": 3, "k": 4}, Erlang(3, 4)),
+        ({"dist": "uniform", "low": 1, "high": 3}, Uniform(1, 3)),
+        ({"dist": "weibull", "mean": 2, "shape": 1.5}, Weibull(2, 1.5)),
+        ({"dist": "empirical", "values": [1, 2]}, Empirical((1, 2))),
+    ]
+    for spec, expected in cases:
+        assert parse_distribution(spec, "h") == expected
     assert DISTRIBUTION_NAMES == ("deterministic", "exponential", "lognormal", "gamma", "erlang",
                                   "uniform", "weibull", "empirical")
     for name in DISTRIBUTION_NAMES:
@@ -128,7 +132,8 @@ _VALID = {"deterministic": {"value": 1}, "exponential": {"mean": 1},
                        "erlang, uniform, weibull, empirical (got 'nope')"),
     ({"dist": "exponential", "mean": 0}, "h.mean: must be > 0 (got 0)"),
     ({"dist": "exponential"}, "h.mean: is required"),
-    ({"dist": "exponential", "mean": 1, "cv": 1}, "h.cv: unknown key for a exponential distribution"),
+    ({"dist": "exponential", "mean": 1, "cv": 1},
+     "h.cv: unknown key for a exponential distribution"),
     ({"dist": "gamma", "mean": -7, "cv": 0.6}, "h.mean: must be >= 0 (got -7)"),
     ({"dist": "lognormal", "mean": 4, "cv": True}, "h.cv: must be a finite number (got True)"),
     ({"dist": "erlang", "mean": 0, "k": 0}, "h.k: must be a whole number >= 1 (got 0)"),
@@ -138,7 +143,8 @@ _VALID = {"deterministic": {"value": 1}, "exponential": {"mean": 1},
     ({"dist": "weibull", "mean": 2, "shape": 0}, "h.shape: must be > 0 (got 0)"),
     ({"dist": "empirical"}, "h: empirical needs exactly one of 'values' or 'file'"),
     ({"dist": "empirical", "values": [1, -1]}, "h.values[1]: must be >= 0 (got -1)"),
-    ({"dist": "empirical", "values": []}, "h.values: must be a non-empty list of numbers (got [])"),
+    ({"dist": "empirical", "values": []},
+     "h.values: must be a non-empty list of numbers (got [])"),
 ])
 def test_messages_name_the_field(spec, message):
     with pytest.raises(FieldError) as info:
