@@ -11,29 +11,13 @@ import pytest
 
 import desim
 
+from .test_runs import MMC
+
 #: what desim/__init__.py exported before the exports became lazy: every one must stay
 EARLIER = {"ConservationError", "DaskError", "DaskUnavailable", "DEFAULT_MAX_JOBS", "Estimate",
            "MserResult", "RunResult", "RunStore", "SimulationError", "SimulationResult",
            "StoreError", "WarmupSuggestion", "dask_executor", "mser5", "replicate",
            "run_replication", "run_replications", "stable_hash", "stream_rng", "waiting_places"}
-
-STATION = """
-    name: M/M/c with patience (invented)
-    time_unit: min
-    run: {horizon: 200, warmup: 20, replications: 4, seed: 5}
-    sources:
-      calls: {rate: 9.0, into: queue}
-    pools:
-      agents: 10
-    places:
-      queue: {patience: {dist: exponential, mean: 2.0}}
-      talk: {hold: {dist: exponential, mean: 1.0}}
-    transitions:
-      answer: {in: [queue, agents], out: [talk]}
-      close: {in: [talk], out: [agents]}
-    targets:
-      queue: {within: 0.5, goal: 0.8}
-"""
 
 
 def test_all_lists_exactly_the_public_names():
@@ -69,7 +53,7 @@ def test_functions_named_like_their_module_stay_functions(name, first):
 
 
 def test_replicate_and_its_tidy_frame(net):
-    s = net(STATION)
+    s = net(MMC)  # M/M/10 with patience and a service target
     result = desim.replicate(s, reps=4, horizon=200, warmup=20, seed=5, workers=1)
     assert isinstance(result, desim.SimulationResult)
     frame = result.to_frame()
