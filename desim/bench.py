@@ -11,7 +11,10 @@ Measures, in one run and with one seed:
 3. events per second on the built-in demo scenario (``compare/demo/utility-line.yaml``, or
    ``--scenario PATH``), from :attr:`desim.RunResult.events` and the wall time;
 4. peak memory of the station at horizons H and 4H, each in a fresh process, to show whether
-   memory stays flat in the horizon when no per-job records are kept.
+   memory stays flat in the horizon when no per-job records are kept;
+5. start-up and whole processes (:mod:`desim.bench_process`): the import time of the console
+   script's module, the wall time of ``fluidgap --help`` and ``fluidgap inspect``, and
+   ``fluidgap simulate`` on the station as one process against the SimPy model run as one.
 
 The two reference models take their arrival gaps and holds from the very streams the engine uses
 (:func:`desim.streams.stream_rng`, same seed, same block draws), so the three simulate the same
@@ -42,12 +45,21 @@ from fluid.errors import ScenarioError
 from fluid.loading import load_scenario, load_scenario_text
 from fluid.scenario import Scenario
 
+from .bench_process import (
+    ProcessTiming,
+    StartupTiming,
+    measure_startup,
+    measure_whole_process,
+    process_row,
+)
+from .bench_process import notes as process_notes
 from .run import run_replication
 from .streams import BLOCK, block_draws, stream_rng
 
-__all__ = ["Timing", "DemoTiming", "MemoryPeak", "BenchReport", "station_scenario",
-           "time_engine", "time_simpy_processes", "time_heap_recursion", "time_scenario_events",
-           "demo_path", "memory_peak", "measure_memory", "run_bench", "main"]
+__all__ = ["Timing", "DemoTiming", "MemoryPeak", "BenchReport", "station_yaml",
+           "station_scenario", "time_engine", "time_simpy_processes", "time_heap_recursion",
+           "time_scenario_events", "demo_path", "memory_peak", "measure_memory", "run_bench",
+           "main"]
 
 SERVERS, RATE, MEAN_HOLD = 50, 45.0, 1.0  # load 45/50 = 0.9
 SEED = 2024
@@ -130,6 +142,8 @@ class BenchReport:
     demo: DemoTiming
     memory: tuple[MemoryPeak, MemoryPeak]
     memory_records: MemoryPeak
+    startup: StartupTiming | None = None
+    whole_process: ProcessTiming | None = None
 
     def to_json(self) -> dict:
         def timing(t: Timing) -> dict:
@@ -156,15 +170,22 @@ class BenchReport:
                 "traced_ratio_4h_to_h": large.traced_mib / small.traced_mib,
                 "max_rss_ratio_4h_to_h": large.max_rss_mib / small.max_rss_mib,
             },
+            "startup": None if self.startup is None else asdict(self.startup),
+            "whole_process": None if self.whole_process is None else {
+                **asdict(self.whole_process), "ratio_simpy_to_fluidgap": self.whole_process.ratio},
         }
+
+
+def station_yaml(servers: int = SERVERS, rate: float = RATE, mean_hold: float = MEAN_HOLD,
+                 seed: int = SEED) -> str:
+    """The benchmark's M/M/c station as scenario YAML text (rate per min, hold in min)."""
+    return _STATION.format(servers=servers, rate=rate, hold=mean_hold, seed=seed)
 
 
 def station_scenario(servers: int = SERVERS, rate: float = RATE, mean_hold: float = MEAN_HOLD,
                      seed: int = SEED) -> Scenario:
-    """The benchmark's M/M/c station as a Scenario built from YAML text (rate per min, hold in
-    min)."""
-    return load_scenario_text(_STATION.format(servers=servers, rate=rate, hold=mean_hold,
-                                              seed=seed), file="<bench station>")
+    """The benchmark's M/M/c station as a Scenario (:func:`station_yaml`)."""
+    return load_scenario_text(station_yaml(servers, rate, mean_hold, seed), file="<bench station>")
 
 
 def _erlang_c_mean_wait(servers: int, rate: float, mean_hold: float) -> float:
@@ -334,8 +355,13 @@ def run_bench(*, quick: bool = False, seed: int = SEED, scenario_path: str | Pat
     h = 100.0 if quick else 1000.0
     memory = (measure_memory(h, seed), measure_memory(4 * h, seed))
     records = measure_memory(4 * h, seed, records=True)
+    root = Path(__file__).resolve().parent.parent
+    inspected = root / "configs" / "utility-line.yaml"
+    startup = measure_startup(inspected if inspected.is_file() else path, root, repeats)
+    process = measure_whole_process(station_yaml(seed=seed), horizon, seed, root, repeats)
     return BenchReport(quick, seed, repeats, ours, handwritten, heap,
-                       _erlang_c_mean_wait(SERVERS, RATE, MEAN_HOLD), demo, memory, records)
+                       _erlang_c_mean_wait(SERVERS, RATE, MEAN_HOLD), demo, memory, records,
+                       startup, process)
 
 
 def _table(report: BenchReport) -> str:
@@ -362,6 +388,8 @@ def _table(report: BenchReport) -> str:
          f"{report.memory_records.traced_mib:.2f}", f"{mem[1].traced_mib:.2f}",
          f"{report.memory_records.traced_mib / mem[1].traced_mib:.1f}"),
     ]
+    if report.whole_process is not None:
+        rows.append(process_row(report.whole_process))
     widths = [max(len(r[i]) for r in rows) for i in range(4)]
     lines = ["  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in
                        enumerate(zip(r, widths))) for r in rows]
@@ -381,6 +409,8 @@ def _table(report: BenchReport) -> str:
         "memory: each horizon in a fresh process, no per-job records; callers "
         + ", ".join(f"{m.callers:,} (horizon {m.horizon:g})" for m in mem),
     ]
+    if report.startup is not None and report.whole_process is not None:
+        notes += process_notes(report.startup, report.whole_process, report.repeats)
     return "\n".join(lines + notes)
 
 

@@ -11,7 +11,6 @@ from dataclasses import dataclass
 from typing import Iterable
 
 import numpy as np
-from scipy import stats
 
 __all__ = ["Estimate", "LEVEL"]
 
@@ -44,6 +43,8 @@ class Estimate:
         mean = float(x.mean())
         if n == 1:
             return cls(mean, math.nan, math.nan, 1)
+        from scipy import stats  # (here, not at module level: importing it takes a second)
+
         sd = float(x.std(ddof=1))
         half = float(stats.t.ppf(0.5 + level / 2, n - 1)) * sd / math.sqrt(n)
         return cls(mean, mean - half, mean + half, n)

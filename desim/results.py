@@ -10,13 +10,16 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from .estimate import Estimate
 from .run import RunResult
 from .warmup import mser5
+
+if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is slow)
+    import pandas as pd
 
 __all__ = ["SimulationResult", "WarmupSuggestion", "summarize"]
 
@@ -106,11 +109,16 @@ class SimulationResult:
 
     def per_replication(self) -> pd.DataFrame:
         """Tidy table of every per-replication figure: replication, kind, name, metric, value."""
+        import pandas as pd
+
         rows = [(r.replication, k, n, m, v) for r in self.runs for (k, n, m), v in r.values().items()]
         return pd.DataFrame(rows, columns=["replication", "kind", "name", "metric", "value"])
 
     def to_frame(self) -> pd.DataFrame:
-        """Tidy table: kind, name, metric, mean, low, high, n."""
+        """Tidy table, one row per simulated figure: kind (transition, place, pool, source),
+        name, metric, mean, low, high (the 95 % interval), n (replications measured)."""
+        import pandas as pd
+
         rows = []
         for kind, table in (("transition", self.transitions), ("place", self.places),
                             ("pool", self.pools), ("source", self.sources)):
@@ -163,6 +171,8 @@ def _estimates(runs: list[RunResult], kind_table: str, metrics: tuple[str, ...] 
 def _interval_estimates(runs: list[RunResult]) -> pd.DataFrame | None:
     if runs[0].intervals is None:
         return None
+    import pandas as pd
+
     frame = pd.concat([r.intervals.assign(replication=r.replication) for r in runs])
     rows = []
     for (i, metric, name), g in frame.groupby(["interval", "metric", "name"], sort=False):

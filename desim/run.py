@@ -28,9 +28,9 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from fluid.scenario import Scenario
 from fluid.structure import waiting_places
@@ -39,7 +39,11 @@ from .engine import Engine
 from .net import Net, build_net
 from .warmup import MserResult, mser5
 
-__all__ = ["RunResult", "run_replication", "DEFAULT_MAX_JOBS", "DEFAULT_SAMPLES", "check_settings"]
+if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is slow)
+    import pandas as pd
+
+__all__ = ["RunResult", "run_replication", "DEFAULT_MAX_JOBS", "DEFAULT_SAMPLES", "check_settings",
+           "waiting_places"]
 
 #: Jobs allowed inside at once before a run is declared unstable (about 0.3 GB per run).
 DEFAULT_MAX_JOBS = 1_000_000
@@ -180,6 +184,8 @@ def _window_stats(scenario: Scenario, net: Net, delta: np.ndarray, length: float
 
 
 def _interval_table(scenario: Scenario, net: Net, times: list[float], snaps: list[np.ndarray]):
+    import pandas as pd
+
     targets = tuple(scenario.targets.service)
     waiting = waiting_places(scenario)
     rows = []

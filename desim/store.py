@@ -32,7 +32,6 @@ from pathlib import Path
 from typing import Any, Iterable, Mapping
 
 import numpy as np
-import pandas as pd
 
 from fluid.scenario import Scenario
 
@@ -166,6 +165,8 @@ def run_from_json(doc: Mapping) -> RunResult:
     if doc["intervals"] is not None:
         rows = [tuple(_num(v) if i in _NUMERIC_INTERVAL else v for i, v in enumerate(row))
                 for row in doc["intervals"]]
+        import pandas as pd
+
         # the same constructor as desim.run builds it with, so the dtypes come out the same
         intervals = pd.DataFrame(rows, columns=list(_INTERVAL_COLUMNS))
     waits = None

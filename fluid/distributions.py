@@ -5,19 +5,24 @@ standard deviation / mean), ``sample(rng, size)`` returning a numpy array of dra
 ``cdf(x)``. The fluid model reads the mean only; the simulator samples; Whitt's fluid model of
 abandonment reads the patience CDF. All values are in the scenario's time unit.
 
-To add a distribution: write a frozen dataclass with those four members, give it a ``name``, add
-a parser to ``_PARSERS`` naming its keys, and add a test of its moments against scipy.stats.
+Each distribution declares its YAML keys and their domains as data (``params``, a tuple of
+:class:`Param`), as SciPy's newer distributions declare their parameter domains; one reader
+(:meth:`_Distribution.from_spec`) checks every key against its domain and builds the object,
+so every distribution words its errors the same way. To add one: DEVELOPERS.md, "How to add a
+distribution".
+
+scipy is imported inside the few methods that need it (the CDFs of the lognormal, gamma and
+Erlang, the cv of the Weibull): loading and validating a scenario does not import scipy.stats.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable, Protocol
+from typing import Any, ClassVar, Protocol
 
 import numpy as np
-from scipy import special, stats
 
 from .errors import FieldError
 
@@ -50,12 +55,136 @@ class Distribution(Protocol):
     def cdf(self, x: float) -> float: ...
 
 
+# --- parameter domains ---------------------------------------------------------------------------
+
+
+def _finite(value: Any, path: str, *, positive: bool = False) -> float:
+    """``value`` as a float when it is a finite number >= 0 (> 0 with ``positive``)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise FieldError(path, "must be a finite number", value)
+    if value < 0:
+        raise FieldError(path, "must be >= 0", value)
+    if positive and value == 0:
+        raise FieldError(path, "must be > 0", value)
+    return float(value)
+
+
 @dataclass(frozen=True)
-class Deterministic:
+class Real:
+    """A required finite number >= 0 (also > 0 when ``positive``)."""
+
+    positive: bool = False
+
+    def read(self, spec: dict, key: str, path: str) -> float:
+        if key not in spec:
+            raise FieldError(f"{path}.{key}", "is required")
+        return _finite(spec[key], f"{path}.{key}", positive=self.positive)
+
+
+@dataclass(frozen=True)
+class Whole:
+    """A whole number >= ``low`` (a bool is not one; a missing key reads as None and fails)."""
+
+    low: int = 1
+
+    def read(self, spec: dict, key: str, path: str) -> int:
+        value = spec.get(key)
+        if isinstance(value, bool) or not isinstance(value, int) or value < self.low:
+            raise FieldError(f"{path}.{key}", f"must be a whole number >= {self.low}", value)
+        return value
+
+
+NON_NEGATIVE, POSITIVE, AT_LEAST_ONE = Real(), Real(positive=True), Whole(1)
+
+
+@dataclass(frozen=True)
+class Param:
+    """One YAML key of a distribution: the dataclass field ``attr`` it fills, its ``domain``,
+    and ``at_least``: the key of an earlier parameter it may not be below (or None)."""
+
+    key: str
+    attr: str
+    domain: Real | Whole
+    at_least: str | None = None
+
+
+def _step(x: float, at: float) -> float:
+    """CDF of the point mass at ``at``."""
+    return 1.0 if x >= at else 0.0
+
+
+def _gamma_cdf(x: float, shape: float, scale: float) -> float:
+    from scipy import stats
+
+    return float(stats.gamma.cdf(x, shape, scale=scale))
+
+
+# --- the distributions ---------------------------------------------------------------------------
+
+
+class _Distribution:
+    """What every distribution shares: its ``name`` (the YAML ``dist``), its ``params``
+    (checked in the order listed, which is the order errors are found in) and the reader that
+    builds it from its YAML mapping."""
+
+    name: ClassVar[str]
+    params: ClassVar[tuple[Param, ...]] = ()
+
+    @classmethod
+    def keys(cls) -> tuple[str, ...]:
+        """The YAML keys allowed besides ``dist``."""
+        return tuple(p.key for p in cls.params)
+
+    @classmethod
+    def from_spec(cls, spec: dict, path: str, base_dir: Path | None):
+        """Check each declared parameter of ``spec`` against its domain and build the object;
+        raises :class:`FieldError` naming ``path`` and the key."""
+        read: dict[str, Any] = {}
+        for p in cls.params:
+            value = p.domain.read(spec, p.key, path)
+            if p.at_least is not None and value < read[p.at_least]:
+                raise FieldError(f"{path}.{p.key}",
+                                 f"must be >= {p.at_least} ({read[p.at_least]:g})", value)
+            read[p.key] = value
+        return cls(**{p.attr: read[p.key] for p in cls.params})
+
+
+class _ByMean(_Distribution):
+    """A distribution given by its mean (the field ``mean_value``)."""
+
+    @property
+    def mean(self) -> float:
+        return self.mean_value
+
+
+class _ByMeanCv(_ByMean):
+    """A distribution given by its mean and cv (fields ``mean_value``, ``cv_value``); cv 0 is
+    the point mass at the mean. Subclasses draw and give the CDF for cv > 0."""
+
+    params = (Param("mean", "mean_value", POSITIVE), Param("cv", "cv_value", NON_NEGATIVE))
+
+    @property
+    def cv(self) -> float:
+        return self.cv_value
+
+    def sample(self, rng: np.random.Generator, size: int) -> np.ndarray:
+        if self.cv_value == 0:
+            return np.full(size, self.mean_value, dtype=float)
+        return self._draw(rng, size)
+
+    def cdf(self, x: float) -> float:
+        if self.cv_value == 0:
+            return _step(x, self.mean_value)
+        return self._cdf(x)
+
+
+@dataclass(frozen=True)
+class Deterministic(_Distribution):
     """Always ``value``."""
 
     value: float
-    name: str = field(default="deterministic", init=False, repr=False)
+    name = "deterministic"
+    params = (Param("value", "value", NON_NEGATIVE),)
 
     @property
     def mean(self) -> float:
@@ -69,19 +198,16 @@ class Deterministic:
         return np.full(size, self.value, dtype=float)
 
     def cdf(self, x: float) -> float:
-        return 1.0 if x >= self.value else 0.0
+        return _step(x, self.value)
 
 
 @dataclass(frozen=True)
-class Exponential:
+class Exponential(_ByMean):
     """Exponential with the given mean (cv = 1)."""
 
     mean_value: float
-    name: str = field(default="exponential", init=False, repr=False)
-
-    @property
-    def mean(self) -> float:
-        return self.mean_value
+    name = "exponential"
+    params = (Param("mean", "mean_value", POSITIVE),)
 
     @property
     def cv(self) -> float:
@@ -95,78 +221,53 @@ class Exponential:
 
 
 @dataclass(frozen=True)
-class Lognormal:
+class Lognormal(_ByMeanCv):
     """Lognormal given by its mean and cv (not by the parameters of the underlying normal)."""
 
     mean_value: float
     cv_value: float
-    name: str = field(default="lognormal", init=False, repr=False)
-
-    @property
-    def mean(self) -> float:
-        return self.mean_value
-
-    @property
-    def cv(self) -> float:
-        return self.cv_value
+    name = "lognormal"
 
     def _params(self) -> tuple[float, float]:
         sigma2 = math.log1p(self.cv_value**2)
         return math.log(self.mean_value) - sigma2 / 2, math.sqrt(sigma2)
 
-    def sample(self, rng: np.random.Generator, size: int) -> np.ndarray:
-        if self.cv_value == 0:
-            return np.full(size, self.mean_value, dtype=float)
+    def _draw(self, rng: np.random.Generator, size: int) -> np.ndarray:
         mu, sigma = self._params()
         return rng.lognormal(mu, sigma, size)
 
-    def cdf(self, x: float) -> float:
-        if self.cv_value == 0:
-            return 1.0 if x >= self.mean_value else 0.0
+    def _cdf(self, x: float) -> float:
+        from scipy import stats
+
         mu, sigma = self._params()
         return float(stats.lognorm.cdf(x, s=sigma, scale=math.exp(mu)))
 
 
 @dataclass(frozen=True)
-class Gamma:
+class Gamma(_ByMeanCv):
     """Gamma given by its mean and cv (shape 1/cv², scale mean·cv²)."""
 
     mean_value: float
     cv_value: float
-    name: str = field(default="gamma", init=False, repr=False)
+    name = "gamma"
 
-    @property
-    def mean(self) -> float:
-        return self.mean_value
-
-    @property
-    def cv(self) -> float:
-        return self.cv_value
-
-    def sample(self, rng: np.random.Generator, size: int) -> np.ndarray:
-        if self.cv_value == 0:
-            return np.full(size, self.mean_value, dtype=float)
+    def _draw(self, rng: np.random.Generator, size: int) -> np.ndarray:
         shape = 1.0 / self.cv_value**2
         return rng.gamma(shape, self.mean_value / shape, size)
 
-    def cdf(self, x: float) -> float:
-        if self.cv_value == 0:
-            return 1.0 if x >= self.mean_value else 0.0
+    def _cdf(self, x: float) -> float:
         shape = 1.0 / self.cv_value**2
-        return float(stats.gamma.cdf(x, shape, scale=self.mean_value / shape))
+        return _gamma_cdf(x, shape, self.mean_value / shape)
 
 
 @dataclass(frozen=True)
-class Erlang:
+class Erlang(_ByMean):
     """Erlang with ``k`` phases and the given mean (cv = 1/sqrt(k))."""
 
     mean_value: float
     k: int
-    name: str = field(default="erlang", init=False, repr=False)
-
-    @property
-    def mean(self) -> float:
-        return self.mean_value
+    name = "erlang"
+    params = (Param("k", "k", AT_LEAST_ONE), Param("mean", "mean_value", POSITIVE))
 
     @property
     def cv(self) -> float:
@@ -176,16 +277,18 @@ class Erlang:
         return rng.gamma(self.k, self.mean_value / self.k, size)
 
     def cdf(self, x: float) -> float:
-        return float(stats.gamma.cdf(x, self.k, scale=self.mean_value / self.k))
+        return _gamma_cdf(x, self.k, self.mean_value / self.k)
 
 
 @dataclass(frozen=True)
-class Uniform:
+class Uniform(_Distribution):
     """Uniform on [low, high]."""
 
     low: float
     high: float
-    name: str = field(default="uniform", init=False, repr=False)
+    name = "uniform"
+    params = (Param("low", "low", NON_NEGATIVE),
+              Param("high", "high", NON_NEGATIVE, at_least="low"))
 
     @property
     def mean(self) -> float:
@@ -201,21 +304,18 @@ class Uniform:
 
     def cdf(self, x: float) -> float:
         if self.high == self.low:
-            return 1.0 if x >= self.low else 0.0
+            return _step(x, self.low)
         return float(min(1.0, max(0.0, (x - self.low) / (self.high - self.low))))
 
 
 @dataclass(frozen=True)
-class Weibull:
+class Weibull(_ByMean):
     """Weibull given by its mean and shape k (scale = mean / Γ(1 + 1/k))."""
 
     mean_value: float
     shape: float
-    name: str = field(default="weibull", init=False, repr=False)
-
-    @property
-    def mean(self) -> float:
-        return self.mean_value
+    name = "weibull"
+    params = (Param("mean", "mean_value", POSITIVE), Param("shape", "shape", POSITIVE))
 
     @property
     def scale(self) -> float:
@@ -223,6 +323,8 @@ class Weibull:
 
     @property
     def cv(self) -> float:
+        from scipy import special
+
         g1 = special.gamma(1 + 1 / self.shape)
         g2 = special.gamma(1 + 2 / self.shape)
         return float(math.sqrt(max(g2 / g1**2 - 1, 0.0)))
@@ -235,11 +337,25 @@ class Weibull:
 
 
 @dataclass(frozen=True)
-class Empirical:
-    """Resamples the given values with equal probability (a bootstrap of observed times)."""
+class Empirical(_Distribution):
+    """Resamples the given values with equal probability (a bootstrap of observed times).
+    In YAML exactly one of ``values`` (a list) or ``file`` (whitespace-separated numbers, the
+    path relative to the scenario file)."""
 
     values: tuple[float, ...]
-    name: str = field(default="empirical", init=False, repr=False)
+    name = "empirical"
+
+    @classmethod
+    def keys(cls) -> tuple[str, ...]:
+        return ("values", "file")
+
+    @classmethod
+    def from_spec(cls, spec: dict, path: str, base_dir: Path | None) -> Empirical:
+        if ("values" in spec) == ("file" in spec):
+            raise FieldError(path, "empirical needs exactly one of 'values' or 'file'")
+        if "values" in spec:
+            return cls(_parse_values(spec["values"], f"{path}.values"))
+        return cls(_read_values_file(spec["file"], f"{path}.file", base_dir))
 
     @property
     def mean(self) -> float:
@@ -260,30 +376,10 @@ class Empirical:
 # --- parsing -------------------------------------------------------------------------------------
 
 
-def _number(spec: dict, key: str, path: str, *, positive: bool = False) -> float:
-    if key not in spec:
-        raise FieldError(f"{path}.{key}", "is required")
-    value = spec[key]
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise FieldError(f"{path}.{key}", "must be a finite number", value)
-    if value < 0:
-        raise FieldError(f"{path}.{key}", "must be >= 0", value)
-    if positive and value == 0:
-        raise FieldError(f"{path}.{key}", "must be > 0", value)
-    return float(value)
-
-
 def _parse_values(values: Any, path: str) -> tuple[float, ...]:
     if not isinstance(values, list) or not values:
         raise FieldError(path, "must be a non-empty list of numbers", values)
-    out = []
-    for i, v in enumerate(values):
-        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-            raise FieldError(f"{path}[{i}]", "must be a finite number", v)
-        if v < 0:
-            raise FieldError(f"{path}[{i}]", "must be >= 0", v)
-        out.append(float(v))
-    return tuple(out)
+    return tuple(_finite(v, f"{path}[{i}]") for i, v in enumerate(values))
 
 
 def _read_values_file(name: Any, path: str, base_dir: Path | None) -> tuple[float, ...]:
@@ -303,59 +399,12 @@ def _read_values_file(name: Any, path: str, base_dir: Path | None) -> tuple[floa
     return _parse_values(values, path)
 
 
-def _parse_empirical(spec: dict, path: str, base_dir: Path | None) -> Empirical:
-    if ("values" in spec) == ("file" in spec):
-        raise FieldError(path, "empirical needs exactly one of 'values' or 'file'")
-    if "values" in spec:
-        return Empirical(_parse_values(spec["values"], f"{path}.values"))
-    return Empirical(_read_values_file(spec["file"], f"{path}.file", base_dir))
-
-
-def _parse_erlang(spec: dict, path: str, base_dir: Path | None) -> Erlang:
-    k = spec.get("k")
-    if isinstance(k, bool) or not isinstance(k, int) or k < 1:
-        raise FieldError(f"{path}.k", "must be a whole number >= 1", k)
-    return Erlang(_number(spec, "mean", path, positive=True), k)
-
-
-def _parse_uniform(spec: dict, path: str, base_dir: Path | None) -> Uniform:
-    low, high = _number(spec, "low", path), _number(spec, "high", path)
-    if high < low:
-        raise FieldError(f"{path}.high", f"must be >= low ({low:g})", high)
-    return Uniform(low, high)
-
-
-_Parser = Callable[[dict, str, "Path | None"], Any]
-
-_PARSERS: dict[str, tuple[frozenset[str], _Parser]] = {
-    "deterministic": (
-        frozenset({"value"}),
-        lambda s, p, b: Deterministic(_number(s, "value", p)),
-    ),
-    "exponential": (
-        frozenset({"mean"}),
-        lambda s, p, b: Exponential(_number(s, "mean", p, positive=True)),
-    ),
-    "lognormal": (
-        frozenset({"mean", "cv"}),
-        lambda s, p, b: Lognormal(_number(s, "mean", p, positive=True), _number(s, "cv", p)),
-    ),
-    "gamma": (
-        frozenset({"mean", "cv"}),
-        lambda s, p, b: Gamma(_number(s, "mean", p, positive=True), _number(s, "cv", p)),
-    ),
-    "erlang": (frozenset({"mean", "k"}), _parse_erlang),
-    "uniform": (frozenset({"low", "high"}), _parse_uniform),
-    "weibull": (
-        frozenset({"mean", "shape"}),
-        lambda s, p, b: Weibull(
-            _number(s, "mean", p, positive=True), _number(s, "shape", p, positive=True)
-        ),
-    ),
-    "empirical": (frozenset({"values", "file"}), _parse_empirical),
+#: The distributions by YAML name, in the order error messages list them.
+DISTRIBUTIONS: dict[str, type[_Distribution]] = {
+    cls.name: cls
+    for cls in (Deterministic, Exponential, Lognormal, Gamma, Erlang, Uniform, Weibull, Empirical)
 }
-
-DISTRIBUTION_NAMES = tuple(_PARSERS)
+DISTRIBUTION_NAMES = tuple(DISTRIBUTIONS)
 
 
 def parse_distribution(spec: Any, path: str, base_dir: Path | None = None) -> Distribution:
@@ -370,12 +419,12 @@ def parse_distribution(spec: Any, path: str, base_dir: Path | None = None) -> Di
     if not isinstance(spec, dict):
         raise FieldError(path, "must be a number or {dist: NAME, ...}", spec)
     name = spec.get("dist")
-    if not isinstance(name, str) or name not in _PARSERS:
+    if not isinstance(name, str) or name not in DISTRIBUTIONS:
         raise FieldError(
             f"{path}.dist", f"must be one of {', '.join(DISTRIBUTION_NAMES)}", name
         )
-    keys, parser = _PARSERS[name]
+    kind = DISTRIBUTIONS[name]
     for key in spec:
-        if key != "dist" and key not in keys:
+        if key != "dist" and key not in kind.keys():
             raise FieldError(f"{path}.{key}", f"unknown key for a {name} distribution")
-    return parser(spec, path, base_dir)
+    return kind.from_spec(spec, path, base_dir)

@@ -22,8 +22,8 @@ import warnings
 from functools import reduce
 
 import numpy as np
-from scipy.optimize import linprog
 
+from .lp import linprog
 from .scenario import Scenario
 
 __all__ = [
@@ -184,10 +184,18 @@ def p_semiflows(scenario: Scenario, *, max_rows: int = DEFAULT_MAX_ROWS) -> list
     return out
 
 
+#: Row cap of the enumeration that :func:`uncovered_pools` tries before its LP.
+COVERAGE_MAX_ROWS = 500
+
+
 def uncovered_pools(scenario: Scenario) -> list[str]:
     """Pools that lie on no P-semiflow (their agents can leak or multiply), in declaration order.
 
-    Decided by one LP, independent of the enumeration cap: maximise ``Σ w_r`` subject to
+    Every semiflow is a non-negative combination of the minimal-support ones (the extreme rays
+    of the pointed cone ``{y ≥ 0 : yᵀC = 0}``), so a pool is covered exactly when one of those
+    holds it. They are enumerated first (exact integers, no solver: validating a scenario needs
+    no scipy.optimize); when that needs more than :data:`COVERAGE_MAX_ROWS` rows the answer
+    comes from one LP instead, independent of any cap: maximise ``Σ w_r`` subject to
     ``w_r ≤ y_r``, ``w_r ≤ 1``, ``yᵀC = 0``, ``y ≥ 0``. The semiflows form a cone closed under
     addition, so at the optimum ``w_r = 1`` exactly for the pools that some semiflow covers.
     """
@@ -195,6 +203,16 @@ def uncovered_pools(scenario: Scenario) -> list[str]:
     if not pools:
         return []
     names, _, c = incidence_matrix(scenario)
+    found = _farkas(c, COVERAGE_MAX_ROWS)
+    if found is not None:
+        covered = {names[i] for y in found for i, v in enumerate(y) if v}
+        return [p for p in pools if p not in covered]
+    return _uncovered_by_lp(pools, names, c)
+
+
+def _uncovered_by_lp(pools: list[str], names: list[str], c: np.ndarray) -> list[str]:
+    """:func:`uncovered_pools` by its LP (rows ``names`` and incidence ``c`` as from
+    :func:`incidence_matrix`)."""
     n, k = len(names), len(pools)
     pool_rows = [names.index(p) for p in pools]
     # variables: y (n), then w (k)

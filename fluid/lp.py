@@ -30,13 +30,20 @@ from dataclasses import dataclass
 from typing import Mapping
 
 import numpy as np
-from scipy.optimize import linprog
 
 from .errors import SolverError
 from .scenario import Scenario
 from .structure import places_without_exit, route_share
 
 __all__ = ["LPSolution", "throughput_lp", "RESIDUAL_TOLERANCE"]
+
+
+def linprog(*args, **kwargs):
+    """:func:`scipy.optimize.linprog`, imported at the first solve: importing scipy.optimize
+    takes longer than loading a scenario, and most commands never solve an LP."""
+    from scipy.optimize import linprog as scipy_linprog
+
+    return scipy_linprog(*args, **kwargs)
 
 # Relative tolerance of the residual re-check; HiGHS's own primal feasibility tolerance is 1e-7.
 RESIDUAL_TOLERANCE = 1e-6

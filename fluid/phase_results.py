@@ -11,8 +11,12 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+from typing import TYPE_CHECKING
+
 import numpy as np
-import pandas as pd
+
+if TYPE_CHECKING:  # pandas is imported by the table methods only (importing it is slow)
+    import pandas as pd
 
 __all__ = ["INFLOW", "GridPoint", "PhaseDiagram", "Piece"]
 
@@ -189,8 +193,45 @@ class PhaseDiagram:
         }
 
     def to_frame(self) -> pd.DataFrame:
+        """Tidy table, one row per figure: columns kind, name, metric, value, label.
+
+        kind "diagram" (name: the scenario): ``inflow_rate`` (per time unit), ``lp_solves``,
+        ``max_mismatch``, ``exact`` (1 or 0); kind "pool" (name: an axis pool): ``range_low``,
+        ``range_high`` and ``staff`` (the scenario's; agents). Method "lp": kind "piece" (name:
+        its index "0", "1", ...): ``const`` (per time unit), ``coef_<pool>`` for each axis pool
+        (per agent) and ``witness_<pool>`` (a staff point inside its cell). Method
+        "counters-grid": kind "point" (name like "front_desk=3, supervisors=2"): ``rate`` and
+        ``staff_<pool>`` for each axis pool. ``label``: the limiting pools of the piece or point
+        ("inflow" when none), empty on the other rows. One row per piece or point instead:
+        :meth:`wide_frame`."""
+        import pandas as pd
+
+        rows = [("diagram", self.scenario_name, "inflow_rate", float(self.inflow_rate), ""),
+                ("diagram", self.scenario_name, "lp_solves", float(self.lp_solves), ""),
+                ("diagram", self.scenario_name, "max_mismatch", float(self.max_mismatch), ""),
+                ("diagram", self.scenario_name, "exact", float(self.exact), "")]
+        for p in self.axes:
+            low, high = self.ranges[p]
+            rows += [("pool", p, "range_low", float(low), ""),
+                     ("pool", p, "range_high", float(high), ""),
+                     ("pool", p, "staff", float(self.staff[p]), "")]
+        for i, piece in enumerate(self.pieces):
+            rows.append(("piece", str(i), "const", piece.const, piece.label))
+            rows += [("piece", str(i), f"coef_{p}", piece.coef[p], piece.label) for p in self.axes]
+            rows += [("piece", str(i), f"witness_{p}", float(w), piece.label)
+                     for p, w in zip(self.axes, piece.witness)]
+        for g in self.grid:
+            name = ", ".join(f"{p}={x}" for p, x in zip(self.axes, g.point))
+            rows.append(("point", name, "rate", g.rate, g.label))
+            rows += [("point", name, f"staff_{p}", float(x), g.label)
+                     for p, x in zip(self.axes, g.point)]
+        return pd.DataFrame(rows, columns=["kind", "name", "metric", "value", "label"])
+
+    def wide_frame(self) -> pd.DataFrame:
         """LP method: one row per piece (piece, const, coef_<axis> per axis, label). Counters
         grid: one row per point (the axis pools as column names, rate, label)."""
+        import pandas as pd
+
         if self.method == "lp":
             rows = [(i, p.const, *(p.coef[x] for x in self.axes), p.label)
                     for i, p in enumerate(self.pieces)]
@@ -198,3 +239,6 @@ class PhaseDiagram:
                                                *(f"coef_{x}" for x in self.axes), "label"])
         rows = [(*g.point, g.rate, g.label) for g in self.grid]
         return pd.DataFrame(rows, columns=[*self.axes, "rate", "label"])
+
+
+# --- inputs --------------------------------------------------------------------------------------

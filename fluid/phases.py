@@ -43,9 +43,8 @@ import math
 from typing import Iterable, Mapping, Sequence
 
 import numpy as np
-from scipy.optimize import linprog
 
-from .lp import throughput_lp
+from .lp import linprog, throughput_lp
 from .offered import offered_rates, offered_work
 from .phase_grid import grid_diagram
 from .phase_results import INFLOW, GridPoint, PhaseDiagram, Piece

@@ -31,11 +31,9 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
-from typing import Mapping
+from typing import TYPE_CHECKING, Mapping
 
 import numpy as np
-import pandas as pd
-from scipy.optimize import Bounds, LinearConstraint, milp
 
 from .counters import integrate_counters
 from .errors import SolverError
@@ -45,6 +43,9 @@ from .offered import offered_rates, offered_work
 from .scenario import FrozenMap, Scenario
 from .sources import PoissonArrivals
 from .structure import inflow, lp_applies, places_without_exit, unlimited_share
+
+if TYPE_CHECKING:  # pandas is imported by the table methods only (importing it is slow)
+    import pandas as pd
 
 __all__ = ["FluidPlan", "fluid_plan", "with_staff", "plan_view"]
 
@@ -91,7 +92,30 @@ class FluidPlan:
         }
 
     def to_frame(self) -> pd.DataFrame:
+        """Tidy table, one row per figure: columns kind, name, metric, value.
+
+        kind "pool": ``staff`` (the plan's agents), ``cost_per_agent``, ``cost``, ``work``
+        (offered load, agents; nan on no invariant), ``scenario_staff``; kind "transition":
+        ``rate``, the inflow-driven rate the plan carries (per time unit); kind "plan" (name:
+        the scenario): ``cost`` and ``recheck``. One row per pool instead: :meth:`wide_frame`."""
+        import pandas as pd
+
+        rows = []
+        for p, n in self.staff.items():
+            rows += [("pool", p, "staff", float(n)),
+                     ("pool", p, "cost_per_agent", float(self.costs[p])),
+                     ("pool", p, "cost", float(self.costs[p] * n)),
+                     ("pool", p, "work", float(self.work[p])),
+                     ("pool", p, "scenario_staff", float(self.scenario_staff[p]))]
+        rows += [("transition", q, "rate", float(r)) for q, r in self.rates.items()]
+        rows += [("plan", self.scenario_name, "cost", float(self.cost)),
+                 ("plan", self.scenario_name, "recheck", float(self.recheck))]
+        return pd.DataFrame(rows, columns=["kind", "name", "metric", "value"])
+
+    def wide_frame(self) -> pd.DataFrame:
         """One row per pool: pool, staff, cost_per_agent, cost, work, scenario_staff."""
+        import pandas as pd
+
         rows = [(p, n, self.costs[p], self.costs[p] * n, self.work[p], self.scenario_staff[p])
                 for p, n in self.staff.items()]
         return pd.DataFrame(rows, columns=["pool", "staff", "cost_per_agent", "cost", "work",
@@ -232,6 +256,8 @@ def fluid_plan(scenario: Scenario, *, costs: Mapping[str, float] | None = None) 
     integrality = np.array([1] * len(pools) + [0] * (len(trans) + len(srcs)))
     lower = np.array([0.0] * len(pools) + [-np.inf] * (len(trans) + len(srcs)))
     upper = np.array([np.inf] * (len(pools) + len(trans)) + [0.0] * len(srcs))
+    from scipy.optimize import LinearConstraint  # (here: importing scipy.optimize is slow)
+
     constraints = [LinearConstraint(np.array(rows), -np.inf, np.array(rhs))] if rows else []
     res = _solve(cost, integrality, lower, upper, constraints, scenario)
     if any(c == 0 for c in costs.values()) and len(pools):
@@ -265,6 +291,8 @@ def fluid_plan(scenario: Scenario, *, costs: Mapping[str, float] | None = None) 
 
 
 def _solve(cost, integrality, lower, upper, constraints, scenario):
+    from scipy.optimize import Bounds, milp
+
     res = milp(cost, integrality=integrality, bounds=Bounds(lower, upper),
                constraints=constraints, options={"mip_rel_gap": 0.0})
     if res.status != 0 or res.x is None:

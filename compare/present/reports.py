@@ -88,7 +88,7 @@ def phases_report(directory, diagram, overlay, figure, *, json_doc: dict, cautio
                   title: str, summary: list[str]) -> ReportFiles:
     """The report of a phase diagram: its pieces (or grid), the simulated overlay if any, the
     figure (also as PNG)."""
-    tables = {"pieces" if diagram.pieces else "grid": diagram.to_frame()}
+    tables = {"pieces" if diagram.pieces else "grid": diagram.wide_frame()}
     if overlay is not None:
         tables["overlay"] = overlay
     return write_report(directory, title=title, summary_lines=summary, tables=tables,
@@ -100,7 +100,7 @@ def staffing_report(directory, result, figure, *, json_doc: dict, caution: str, 
                     summary: list[str]) -> ReportFiles:
     """The report of a staffing search: the plans tried, the fluid plan per pool, the figure
     (also as PNG)."""
-    pools = result.fluid_plan.to_frame().rename(columns={"staff": "fluid_plan"})
+    pools = result.fluid_plan.wide_frame().rename(columns={"staff": "fluid_plan"})
     pools["plan"] = [result.plan[p] for p in pools["pool"]]
     tables = {"fluid_plan": pools}
     if result.tried:

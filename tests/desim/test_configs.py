@@ -117,3 +117,11 @@ def test_benchmark_quick_json_runs():
     assert {"ratio_ours_to_simpy_processes", "ratio_ours_to_heap_recursion"} <= set(station)
     assert doc["demo"]["events_per_second"] > 0
     assert len(doc["memory"]["runs"]) == 2 and math.isfinite(doc["memory"]["traced_ratio_4h_to_h"])
+    # start-up and whole processes: every command ran (no failure recorded) and was timed
+    startup, process = doc["startup"], doc["whole_process"]
+    assert startup["errors"] == [] and process["errors"] == []
+    assert startup["module"] == "compare.cli" and startup["import_us"] > 0
+    assert startup["help_seconds"] > 0 and startup["inspect_seconds"] > 0
+    assert process["fluidgap_seconds"] > 0 and process["simpy_seconds"] > 0
+    assert process["ratio_simpy_to_fluidgap"] == pytest.approx(
+        process["simpy_seconds"] / process["fluidgap_seconds"], rel=1e-12)

@@ -149,7 +149,7 @@ def test_json_and_frame():
     assert doc["staff"] == {"front_desk": 13, "supervisors": 5}
     assert doc["cost"] == 18
     assert doc["scenario_staff"] == {"front_desk": 10, "supervisors": 4}
-    frame = plan.to_frame()
+    frame = plan.wide_frame()
     assert list(frame["pool"]) == ["front_desk", "supervisors"]
     assert list(frame["staff"]) == [13, 5]
 

@@ -133,3 +133,24 @@ def test_loading_a_covered_net_warns_nothing():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         nets.load(nets.cold_transfer())
+
+
+@pytest.mark.parametrize("text, expected", [
+    (nets.hand_over(10, 4), []), (nets.LEAKY, ["agents"]), (nets.MULTIPLYING, ["agents"]),
+    (nets.SAME_TIME_CYCLE, []), (nets.two_agents(), []),
+])
+def test_coverage_by_enumeration_agrees_with_its_lp(text, expected, monkeypatch):
+    # the enumeration decides coverage when it stays under its cap; with a cap of 0 rows the LP
+    # decides: both must give the same pools
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ScenarioWarning)
+        s = nets.load(text)
+    assert uncovered_pools(s) == expected
+    import fluid.invariants as invariants_module
+
+    real, calls = invariants_module._uncovered_by_lp, []
+    monkeypatch.setattr(invariants_module, "COVERAGE_MAX_ROWS", 0)
+    monkeypatch.setattr(invariants_module, "_uncovered_by_lp",
+                        lambda *a: calls.append(1) or real(*a))
+    assert uncovered_pools(s) == expected
+    assert calls == [1]

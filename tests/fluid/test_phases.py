@@ -164,7 +164,7 @@ def test_json_document():
         value = min(p["const"] + p["coef"]["front_desk"] * f + p["coef"]["supervisors"] * s
                     for p in doc["pieces"])
         assert value == pytest.approx(min(5, f / 3, s), abs=EXACT)
-    frame = d.to_frame()
+    frame = d.wide_frame()
     assert list(frame.columns) == ["piece", "const", "coef_front_desk", "coef_supervisors",
                                    "label"]
 
@@ -346,7 +346,7 @@ def test_one_axis_json_document():
     for n in [0, 3, 9.5, 10, 17, 400]:
         value = min(p["const"] + p["coef"]["agents"] * n for p in doc["pieces"])
         assert value == pytest.approx(min(2.0, n / 5), abs=EXACT)
-    assert list(d.to_frame().columns) == ["piece", "const", "coef_agents", "label"]
+    assert list(d.wide_frame().columns) == ["piece", "const", "coef_agents", "label"]
 
 
 def test_one_axis_counters_grid():
@@ -366,7 +366,7 @@ def test_one_axis_counters_grid():
     doc = json.loads(json.dumps(d.to_json(), allow_nan=False))
     assert doc["axes"] == ["own_desk"] and doc["pieces"] == []
     assert all("b" not in g for g in doc["grid"]) and len(doc["grid"]) == 6
-    assert list(d.to_frame().columns) == ["own_desk", "rate", "label"]
+    assert list(d.wide_frame().columns) == ["own_desk", "rate", "label"]
 
 
 def test_refuses_three_axes():
