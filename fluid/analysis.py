@@ -232,7 +232,10 @@ def _by_counters(scenario, dt, horizon, notes, common) -> FluidResult:
     ending = output_transitions(scenario)
 
     def with_one_more(pool: str) -> float:
-        more = integrate_counters(scenario, dt=sol.dt, horizon=sol.horizon, extra_staff={pool: 1})
+        # constant rates: the variant runs until it settles (its own horizon); time-varying:
+        # the same grid, so that the window levels compare
+        more = integrate_counters(scenario, dt=sol.dt, horizon=None if constant else sol.horizon,
+                                  extra_staff={pool: 1})
         return counter_output_level(more, ending, window)
 
     limiting = bottlenecks(scenario.pools, counter_output_level(sol, ending, window),

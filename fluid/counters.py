@@ -39,7 +39,7 @@ import numpy as np
 
 from .flat_net import COUNTERS, WITH_ABANDONMENT, FluidModel, _shift, build
 from .scenario import Scenario
-from .structure import inflow, outflow
+from .structure import inflow, longest_hold_path, outflow
 
 __all__ = ["CounterSolution", "integrate_counters", "choose_step", "default_horizon", "COUNTERS",
            "WITH_ABANDONMENT", "FluidModel"]
@@ -181,11 +181,13 @@ def choose_step(
 
 
 def default_horizon(scenario: Scenario) -> float:
-    """The scenario's run horizon; for nets without time variation at least 50 times the sum of
-    all holding times, so that the long-run regime is reached well before the end."""
+    """The scenario's run horizon; for nets without time variation at least 50 times the total
+    hold along the longest path of a job (:func:`fluid.structure.longest_hold_path`), so that the
+    long-run regime is reached well before the end (:func:`integrate_counters` runs longer when
+    the increments have not become periodic by then)."""
     h = scenario.run.horizon
     if not scenario.has_time_variation:
-        h = max(h, 50.0 * sum(_holds(scenario)))
+        h = max(h, 50.0 * longest_hold_path(scenario))
     return float(h)
 
 

@@ -78,10 +78,13 @@ def grid_diagram(scenario: Scenario, axes: tuple[str, ...], of: tuple[str, ...],
         if len(pools) == 1 and pools[0] in axes:
             i = axes.index(pools[0])
             up = pt[:i] + (pt[i] + 1,) + pt[i + 1:]
-        if up in base and base[up][0] == grid:
+        # constant rates: long-run rates compare across horizons (each run is long enough to
+        # settle); time-varying: window levels on the same grid only
+        if up in base and (window is None or base[up][0] == grid):
             more = base[up][2]
         else:
-            more = measures(solve(pt, extra={p: 1 for p in pools}, grid=grid))[1]
+            more = measures(solve(pt, extra={p: 1 for p in pools},
+                                  grid=(dt, None) if window is None else grid))[1]
         return output_rises(level, more, "counters")
 
     grid_points = []

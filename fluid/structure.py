@@ -34,6 +34,7 @@ __all__ = [
     "bottlenecks",
     "counter_output_level",
     "inflow",
+    "longest_hold_path",
     "lp_applies",
     "lp_obstacles",
     "outflow",
@@ -222,3 +223,26 @@ def statistics_window(scenario: Scenario, end: float) -> tuple[float, float]:
     scenario's warm-up, or from 0 when the warm-up is not before ``end``."""
     start = scenario.run.warmup if scenario.run.warmup < end else 0.0
     return start, end
+
+
+def longest_hold_path(scenario: Scenario) -> float:
+    """The largest total mean hold (time units) along a path a job can take through the job
+    places, each place counted once on a path (a loop back is not followed again): how long the
+    longest journey through the net takes when nobody waits."""
+    succ: dict[str, set[str]] = {p: set() for p in scenario.places}
+    for q in scenario.transitions:
+        a, b = scenario.job_input(q), scenario.job_output(q)
+        if a is not None and b is not None:
+            succ[a].add(b)
+    best: dict[str, float] = {}
+
+    def walk(p: str, on_path: set[str]) -> float:
+        if p in best:
+            return best[p]
+        on_path.add(p)
+        tail = max((walk(b, on_path) for b in succ[p] if b not in on_path), default=0.0)
+        on_path.discard(p)
+        best[p] = scenario.places[p].hold_mean + tail
+        return best[p]
+
+    return max((walk(p, set()) for p in scenario.places), default=0.0)
