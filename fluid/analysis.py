@@ -19,11 +19,13 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from .counters import MAX_POINTS, CounterSolution, integrate_counters
+import numpy as np
+
+from .counters import MAX_POINTS, CounterSolution, integrate_counters, one_more_agent_levels
 from .lp import throughput_lp
 from .offered import offered_rates, pool_loads
 from .scenario import Scenario
-from .structure import (bottlenecks, counter_output_level, lp_applies, output_transitions,
+from .structure import (COUNTER_RISE, bottlenecks, counter_output_level, lp_applies, output_transitions,
                         statistics_window)
 
 __all__ = ["FluidResult", "throughput"]
@@ -212,6 +214,27 @@ def _by_lp(scenario, dt, horizon, cross_check, notes, common) -> FluidResult:
     )
 
 
+def _bottleneck_candidates(scenario, sol, ending, window, offered) -> list[str]:
+    """The pools worth the one-more-agent test on a counter solution: none when a constant net
+    already ends every job that arrives (the output cannot rise above the inflow); otherwise,
+    for a constant net, the pools whose agents are all busy at some time over the last quarter
+    of the horizon (a pool that never runs out of agents in the long run limits nothing); with
+    a window (time-varying), every pool."""
+    if window is not None:
+        return list(scenario.pools)
+    inflow = sum(offered[q] for q in ending)
+    output = counter_output_level(sol, ending, None)
+    if math.isfinite(inflow) and output >= inflow * (1.0 - COUNTER_RISE):
+        return []
+    quarter = max(1, len(sol.times) // 4)
+    out = []
+    for pool in scenario.pools:
+        idle = sol.markings[pool][-quarter:]
+        if float(np.min(idle)) <= 1e-9 * max(1.0, float(np.max(sol.levels[pool]))):
+            out.append(pool)
+    return out
+
+
 def _by_counters(scenario, dt, horizon, notes, common) -> FluidResult:
     constant = not scenario.has_time_variation
     if horizon is None and not constant:
@@ -230,16 +253,15 @@ def _by_counters(scenario, dt, horizon, notes, common) -> FluidResult:
         notes.append("the counters had not become periodic by the horizon: long-run rates are "
                      "estimated from the slope over its last half")
     ending = output_transitions(scenario)
-
-    def with_one_more(pool: str) -> float:
-        # constant rates: the variant runs until it settles (its own horizon); time-varying:
-        # the same grid, so that the window levels compare
-        more = integrate_counters(scenario, dt=sol.dt, horizon=None if constant else sol.horizon,
-                                  extra_staff={pool: 1})
-        return counter_output_level(more, ending, window)
-
-    limiting = bottlenecks(scenario.pools, counter_output_level(sol, ending, window),
-                           with_one_more, "counters")
+    base = counter_output_level(sol, ending, window)
+    candidates = _bottleneck_candidates(scenario, sol, ending, window, common["offered_rates"])
+    levels = dict(zip(candidates, one_more_agent_levels(sol, [{p: 1} for p in candidates],
+                                                        ending, window)))
+    for pool, level in levels.items():
+        if math.isnan(level):  # not settled on the base's horizon: run it until it does
+            more = integrate_counters(scenario, dt=sol.dt, extra_staff={pool: 1})
+            levels[pool] = counter_output_level(more, ending, window)
+    limiting = bottlenecks(candidates, base, levels.__getitem__, "counters")
     return FluidResult(
         method="counters", rates=rates, source_rates=srates,
         output_rate=sum(rates[q] for q in ending), bottlenecks=limiting,

@@ -41,8 +41,8 @@ from .flat_net import COUNTERS, WITH_ABANDONMENT, FluidModel, _shift, build
 from .scenario import Scenario
 from .structure import inflow, longest_hold_path, outflow
 
-__all__ = ["CounterSolution", "integrate_counters", "choose_step", "default_horizon", "COUNTERS",
-           "WITH_ABANDONMENT", "FluidModel"]
+__all__ = ["CounterSolution", "integrate_counters", "one_more_agent_levels", "choose_step",
+           "default_horizon", "COUNTERS", "WITH_ABANDONMENT", "FluidModel"]
 
 MAX_POINTS = 200_000
 MIN_POINTS = 2_000
@@ -85,6 +85,9 @@ class CounterSolution:
     abandoned: dict[str, np.ndarray] = field(default_factory=dict)
     abandonment_rates: dict[str, float] = field(default_factory=dict)
     head_wait: dict[str, np.ndarray] = field(default_factory=dict)
+    # the flat equations and the staff on the grid, for one-more-agent variants
+    flat: object = field(default=None, repr=False, compare=False)
+    levels: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def horizon(self) -> float:
@@ -288,7 +291,44 @@ def _integrate(scenario, dt, horizon, staff, extra_staff, max_points,
         abandoned=abandoned,
         abandonment_rates=ab_rates,
         head_wait=hol,
+        flat=flat,
+        levels=level,
     )
+
+
+def one_more_agent_levels(sol: CounterSolution, extras: list[Mapping[str, float]],
+                          transitions, window: tuple[float, float] | None,
+                          workers: int | None = None) -> list[float]:
+    """For each ``extra`` (pool -> agents added in every interval), the level of
+    ``transitions`` that :func:`fluid.structure.counter_output_level` reads on ``sol``, but
+    with those agents: without a window the long-run rate summed (per time unit), with a window
+    the mean of the summed counters over it. Every variant runs on ``sol``'s grid from the flat
+    equations already built (in parallel threads when the kernel is compiled). A variant of a
+    constant net whose increments have not become periodic by the horizon while ``sol``'s have
+    reports nan: the caller integrates it on a longer horizon."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from .kernel import COMPILED
+
+    flat = sol.flat
+    rows = [flat.rows[q] for q in transitions]
+
+    def level(extra) -> float:
+        v = flat.with_levels({p: sol.levels[p] + float(a) for p, a in extra.items()})
+        v.run()
+        z = {q: v.row(r) for q, r in zip(transitions, rows)}
+        if window is None:
+            rates, _, period = _long_run(z, {}, sol.dt)
+            settled = period is not None or sol.period is None  # like with like
+            return sum(rates.values()) if settled else math.nan
+        i, j = (int(round(t / sol.dt)) for t in window)
+        return float(sum(z[q][i: j + 1].mean() for q in transitions))
+
+    n = workers or (2 if COMPILED else 1)
+    if n <= 1 or len(extras) <= 1:
+        return [level(e) for e in extras]
+    with ThreadPoolExecutor(max_workers=n) as pool:
+        return list(pool.map(level, extras))
 
 
 def _markings(scenario, flat, counters, src_z, level, abandoned, n):

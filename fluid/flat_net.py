@@ -72,6 +72,24 @@ class FlatNet:
     distributed: tuple
     waiting_places: tuple
     cyclic: bool
+    base_of: dict
+
+    def with_levels(self, levels: dict) -> "FlatNet":
+        """A fresh copy (nothing integrated yet) with the pools' staff on the grid replaced by
+        ``levels`` (pool -> array); everything else is shared read-only."""
+        arrays = dict(self.arrays)
+        base = self.arrays["base"].copy()
+        for pool, level in levels.items():
+            base[self.base_of[pool]] = level
+        arrays["base"] = base
+        for key in ("coh_amt", "coh_step", "coh_head", "coh_len", "waiting", "hol_age"):
+            arrays[key] = np.zeros_like(self.arrays[key])
+        return FlatNet(n=self.n, pad=self.pad, Z=np.zeros_like(self.Z), arrays=arrays,
+                       rows=self.rows, abandon_rows=self.abandon_rows,
+                       avail_rows=self.avail_rows, in_rows=self.in_rows,
+                       hold_rows=self.hold_rows, delay=self.delay,
+                       distributed=self.distributed, waiting_places=self.waiting_places,
+                       cyclic=self.cyclic, base_of=self.base_of)
 
     def run(self) -> int:
         from .kernel import run
@@ -373,4 +391,4 @@ def build(scenario: Scenario, dt: float, t: np.ndarray, *, sources: dict, levels
     )
     return FlatNet(n=n, pad=pad, Z=Z, arrays=arrays, rows=rows, abandon_rows=abandon_rows,
                    avail_rows=avail_rows, in_rows=in_rows, hold_rows=hold_rows, delay=delay, distributed=distributed,
-                   waiting_places=impatient, cyclic=cyclic)
+                   waiting_places=impatient, cyclic=cyclic, base_of=base_of)
