@@ -21,9 +21,11 @@ from typing import Any
 
 import numpy as np
 
-from .counters import MAX_POINTS, CounterSolution, integrate_counters, one_more_agent_levels
+from .counters import (COUNTERS, MAX_POINTS, WITH_ABANDONMENT, CounterSolution,
+                       integrate_counters, one_more_agent_levels)
 from .lp import throughput_lp
 from .offered import offered_rates, pool_loads
+from .places import place_figures
 from .scenario import Scenario
 from .structure import (COUNTER_RISE, bottlenecks, counter_output_level, lp_applies, output_transitions,
                         statistics_window)
@@ -70,6 +72,8 @@ class FluidResult:
     horizon: float | None = None
     notes: tuple[str, ...] = ()
     counters: CounterSolution | None = field(default=None, repr=False, compare=False)
+    model: str = COUNTERS.name
+    places: dict = field(default_factory=dict)
 
     @property
     def phase(self) -> str:
@@ -119,6 +123,8 @@ class FluidResult:
             "dt": _num(self.dt),
             "horizon": _num(self.horizon),
             "notes": list(self.notes),
+            "model": self.model,
+            "places": {p: fp.to_json() for p, fp in self.places.items()},
         }
 
     def to_json(self, **kwargs) -> str:
@@ -162,6 +168,7 @@ def throughput(
     dt: float | None = None,
     horizon: float | None = None,
     cross_check: bool = True,
+    abandonment: bool = True,
 ) -> FluidResult:
     """Fluid throughput, bottlenecks and loads of ``scenario`` (rates per its time unit).
 
@@ -170,16 +177,29 @@ def throughput(
     ``horizon`` set the counters' grid (defaults: :func:`fluid.counters.choose_step`,
     :func:`fluid.counters.default_horizon`). ``cross_check``: with the LP, also run the counters
     (at most 20 000 grid points unless a grid is given) and report the largest relative rate
-    difference.
+    difference. ``abandonment``: waiting places with patience lose content as their patience
+    says (the fluid model with abandonment, :data:`fluid.flat_net.WITH_ABANDONMENT`); False
+    gives design.md §4.1 as written (patience ignored, queues grow above capacity).
+
+    With patience, the LP's rates are those of the fluid with abandonment (patience only
+    removes what would have queued), and each waiting place settles as in Whitt (2006); where
+    abandoned jobs come back (``abandon_to``) "auto" integrates the dynamics instead. The
+    figures of every waiting place are in ``places`` (:class:`fluid.places.FluidPlace`); the
+    fluid model used is named in ``model``.
     """
+    redials = any(p.abandon_to is not None for p in scenario.places.values())
     if method == "auto":
-        method = "lp" if lp_applies(scenario) else "counters"
+        method = ("lp" if lp_applies(scenario) and not (abandonment and redials)
+                  else "counters")
     if method not in ("lp", "counters"):
         raise ValueError(f"method must be 'auto', 'lp' or 'counters' (got {method!r})")
     notes = []
-    if scenario.has_patience:
+    if scenario.has_patience and not abandonment:
         notes.append("patience is ignored by the fluid model (no abandonment; queues grow "
                      "above capacity)")
+    elif scenario.has_patience and method == "lp":
+        notes.append("waiting places with patience: each settles as in Whitt (2006) at the "
+                     "LP's rates (the fluid model with abandonment in steady state)")
     load_horizon = horizon if horizon is not None else scenario.run.horizon
     load, staff = pool_loads(scenario, load_horizon)
     common = dict(
@@ -188,7 +208,8 @@ def throughput(
     )
     if method == "lp":
         return _by_lp(scenario, dt, horizon, cross_check, notes, common)
-    return _by_counters(scenario, dt, horizon, notes, common)
+    model = WITH_ABANDONMENT if abandonment and scenario.has_patience else COUNTERS
+    return _by_counters(scenario, dt, horizon, notes, common, model)
 
 
 def _by_lp(scenario, dt, horizon, cross_check, notes, common) -> FluidResult:
@@ -210,7 +231,10 @@ def _by_lp(scenario, dt, horizon, cross_check, notes, common) -> FluidResult:
         rounding=None if counters is None else counters.rounding,
         dt=None if counters is None else counters.dt,
         horizon=None if counters is None else counters.horizon,
-        notes=tuple(notes), counters=counters, **common,
+        notes=tuple(notes), counters=counters,
+        model="throughput LP" + (" with Whitt's (2006) stationary queues" if scenario.has_patience
+                                 else ""),
+        places=place_figures(scenario, sol.rates, sol.source_rates), **common,
     )
 
 
@@ -235,11 +259,11 @@ def _bottleneck_candidates(scenario, sol, ending, window, offered) -> list[str]:
     return out
 
 
-def _by_counters(scenario, dt, horizon, notes, common) -> FluidResult:
+def _by_counters(scenario, dt, horizon, notes, common, model=COUNTERS) -> FluidResult:
     constant = not scenario.has_time_variation
     if horizon is None and not constant:
         horizon = scenario.run.horizon
-    sol = integrate_counters(scenario, dt=dt, horizon=horizon)
+    sol = integrate_counters(scenario, dt=dt, horizon=horizon, model=model)
     window = None if constant else _window(scenario, sol)
     if window is None:
         rates, srates = sol.rates, sol.source_rates
@@ -259,12 +283,13 @@ def _by_counters(scenario, dt, horizon, notes, common) -> FluidResult:
                                                         ending, window)))
     for pool, level in levels.items():
         if math.isnan(level):  # not settled on the base's horizon: run it until it does
-            more = integrate_counters(scenario, dt=sol.dt, extra_staff={pool: 1})
+            more = integrate_counters(scenario, dt=sol.dt, extra_staff={pool: 1}, model=model)
             levels[pool] = counter_output_level(more, ending, window)
     limiting = bottlenecks(candidates, base, levels.__getitem__, "counters")
     return FluidResult(
         method="counters", rates=rates, source_rates=srates,
         output_rate=sum(rates[q] for q in ending), bottlenecks=limiting,
         window=window, rounding=sol.rounding, dt=sol.dt, horizon=sol.horizon,
-        notes=tuple(notes), counters=sol, **common,
+        notes=tuple(notes), counters=sol, model=model.name,
+        places=place_figures(scenario, rates, srates, sol, window), **common,
     )

@@ -99,7 +99,7 @@ class FlatNet:
                        a["grp_spec"], a["spec_base"], a["spec_scale"], a["spec_term"],
                        a["term_row"], a["term_coef"], a["term_off"], self.cyclic,
                        a["job_order"], a["job_spec"], a["lin_row"], a["lin_spec"],
-                       a["hold_row"], a["hold_in"], a["hold_kind"], a["hold_rate"],
+                       a["hold_row"], a["hold_in"], a["hold_kind"], a["hold_rate"], a["hold_first"],
                        a["hold_ptr"], a["hold_cdf"], a["ab_row"], a["ab_avail"],
                        a["ab_out_ptr"], a["ab_out_row"], a["ab_out_coef"], a["ab_ptr"],
                        a["ab_surv"], a["coh_amt"], a["coh_step"], a["coh_head"], a["coh_len"],
@@ -147,11 +147,12 @@ def _shift(a: np.ndarray, d: int) -> np.ndarray:
 
 @lru_cache(maxsize=256)
 def _cdf_table(dist, dt: float, limit: int) -> np.ndarray:
-    """G[i] = CDF of ``dist`` at i·dt for i = 0, 1, ... until it reaches CDF_CEILING (at most
-    ``limit`` entries); past the table the hold counts as done."""
-    out = []
-    for i in range(limit):
-        g = float(dist.cdf(i * dt))
+    """G[0] = 0 and G[i] = CDF of ``dist`` at (i + 1/2) dt for i >= 1 (a job finishing during a
+    step is released at its end: see :mod:`fluid.kernel`), until it reaches CDF_CEILING (at
+    most ``limit`` entries); past the table the hold counts as done."""
+    out = [0.0]
+    for i in range(1, limit):
+        g = float(dist.cdf((i + 0.5) * dt))
         out.append(g)
         if g >= CDF_CEILING:
             break
@@ -191,7 +192,7 @@ def build(scenario: Scenario, dt: float, t: np.ndarray, *, sources: dict, levels
                  if pl.hold_mean > 0 else 0) for p, pl in places.items()}
     delay.update({p: 0 for p in scenario.pools})
     impatient = tuple(p for p, pl in places.items() if model.patience and pl.patience is not None)
-    pad = max(delay.values(), default=0) + 1
+    pad = max(delay.values(), default=0) + (2 if distributed else 1)  # a hold reads k - 2
 
     rows = {q: i for i, q in enumerate(trans)}
     nxt = len(trans)
@@ -341,7 +342,8 @@ def build(scenario: Scenario, dt: float, t: np.ndarray, *, sources: dict, levels
             add_lin(avail_rows[p], base_of[p], plain_terms(p))
 
     # hold rows
-    hold_row, hold_in, hold_kind, hold_rate, hold_ptr, hold_cdf = [], [], [], [], [0], []
+    hold_row, hold_in, hold_kind, hold_rate, hold_first, hold_ptr, hold_cdf = (
+        [], [], [], [], [], [0], [])
     for p in distributed:
         hold = places[p].hold
         hold_row.append(hold_rows[p])
@@ -349,9 +351,11 @@ def build(scenario: Scenario, dt: float, t: np.ndarray, *, sources: dict, levels
         if hold.name == "exponential":
             hold_kind.append(0)
             hold_rate.append(-math.expm1(-dt / hold.mean))
+            hold_first.append(-math.expm1(-1.5 * dt / hold.mean))
         else:
             hold_kind.append(1)
             hold_rate.append(0.0)
+            hold_first.append(0.0)
             hold_cdf.extend(_cdf_table(hold, float(dt), n + 1).tolist())
         hold_ptr.append(len(hold_cdf))
 
@@ -381,7 +385,8 @@ def build(scenario: Scenario, dt: float, t: np.ndarray, *, sources: dict, levels
         job_spec=ints([remap[job_spec[q]] if q in job_spec else -1 for q in trans]),
         lin_row=ints(lin_row), lin_spec=ints(lin_spec),
         hold_row=ints(hold_row), hold_in=ints(hold_in), hold_kind=ints(hold_kind),
-        hold_rate=floats(hold_rate), hold_ptr=ints(hold_ptr), hold_cdf=floats(hold_cdf),
+        hold_rate=floats(hold_rate), hold_first=floats(hold_first), hold_ptr=ints(hold_ptr),
+        hold_cdf=floats(hold_cdf),
         ab_row=ints(ab_row), ab_avail=ints(ab_avail), ab_out_ptr=ints(ab_out_ptr),
         ab_out_row=ints(ab_out_row), ab_out_coef=floats(ab_out_coef), ab_ptr=ints(ab_ptr),
         ab_surv=floats(ab_surv), coh_amt=np.zeros((n_ab, cap)),

@@ -12,8 +12,11 @@ grid time ``t_k``; the ``pad`` columns before ``k = 0`` hold zeros), of four kin
   off]`` (what has entered a place, what has become available in it);
 * **hold rows** (a place whose holding time is a distribution, not a fixed delay), evaluated
   before the transitions: the amount that has finished its hold by ``t_k``,
-  ``sum over j of dIn[j] * G(t_k - t_j)`` for the place's inflow row ``In``: exponential holds
-  by the exact one-step recursion, others by a convolution over the support of G on the grid;
+  ``sum over j < k of dIn[j] * G[k - j]`` for the place's inflow row ``In``, with
+  ``G[i] = CDF((i + 1/2) dt)``: a job that finishes during a step is released at its end, so
+  the midpoint keeps the mean hold exact to O(dt^2) (``G[i] = CDF(i dt)`` would add half a step
+  to every hold). Exponential holds by the exact two-term recursion of that sum, others by a
+  convolution over the support of G on the grid;
 * **abandonment rows** (a waiting place with patience), evaluated before the transitions: the
   amount that has abandoned by ``t_k``. The waiting content is kept by age in cohorts (one per
   step of becoming available), served oldest first, each cohort surviving with the patience
@@ -42,7 +45,7 @@ def _run(n, pad, Z, base,
          # linear rows (after the transitions)
          lin_row, lin_spec,
          # hold rows (before the transitions)
-         hold_row, hold_in, hold_kind, hold_rate, hold_ptr, hold_cdf,
+         hold_row, hold_in, hold_kind, hold_rate, hold_first, hold_ptr, hold_cdf,
          # abandonment rows (before the transitions) and their cohorts
          ab_row, ab_avail, ab_out_ptr, ab_out_row, ab_out_coef, ab_ptr, ab_surv,
          coh_amt, coh_step, coh_head, coh_len, waiting, hol_age):
@@ -59,9 +62,11 @@ def _run(n, pad, Z, base,
         for h in range(hold_row.shape[0]):
             r = hold_row[h]
             src = hold_in[h]
-            if hold_kind[h] == 0:  # exponential: the exact one-step recursion
+            if hold_kind[h] == 0:  # exponential: the exact recursion of the table G below
                 prev = Z[r, kk - 1]
-                Z[r, kk] = prev + (Z[src, kk - 1] - prev) * hold_rate[h]
+                older = Z[src, kk - 2]
+                Z[r, kk] = (prev + (Z[src, kk - 1] - older) * hold_first[h]
+                            + (older - prev) * hold_rate[h])
             else:  # convolution with the hold's CDF on the grid, G[0] = 0, G = 1 past the table
                 lo = hold_ptr[h]
                 length = hold_ptr[h + 1] - lo

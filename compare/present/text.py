@@ -124,7 +124,7 @@ def inspect_json(s: Scenario, invariants: list[dict], uncovered: list[str]) -> d
 
 def fluid_text(s: Scenario, r) -> str:
     unit = s.time_unit
-    head = f"{s.name}: fluid model ({'throughput LP' if r.method == 'lp' else 'integrated counter equations'})"
+    head = f"{s.name}: {getattr(r, 'model', '') or 'fluid model'}"
     if getattr(r, "rounding", 0):
         head += f"; hold times rounded to the grid by at most {fmt(100 * r.rounding, 3)} %"
     rows = [[t, fmt(rate), "yes" if s.ends_job(t) else ""] for t, rate in r.rates.items()]
@@ -143,8 +143,17 @@ def fluid_text(s: Scenario, r) -> str:
         summary += f" of {fmt(offered)} arriving"
     summary += "; bottlenecks: " + (", ".join(r.bottlenecks) if r.bottlenecks else "none (inflow-limited)")
     parts.append(summary)
-    parts.append("The fluid model ignores patience and randomness: run `fluidgap simulate` or "
-                 "`fluidgap compare` for waiting, abandonment and service level.")
+    places = getattr(r, "places", {}) or {}
+    if places:
+        parts.append(format_table(
+            ["waiting place", "state", f"inflow per {unit}", f"served per {unit}", "abandoned",
+             "queue", f"wait of served ({unit})"],
+            [[p, fp.state, fmt(fp.inflow), fmt(fp.capacity), _pct(fp.abandoned), fmt(fp.queue),
+              fmt(fp.wait_served)] for p, fp in places.items()],
+            title="waiting places (fluid; steady state, or means over the window "
+                  "for a time-varying scenario):"))
+    parts.append("The fluid model has no randomness: run `fluidgap simulate` or `fluidgap compare` "
+                 "for the simulated waiting, abandonment and service level with intervals.")
     return "\n\n".join(parts)
 
 

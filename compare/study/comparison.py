@@ -123,13 +123,10 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
     transient = None
     if sim.intervals is not None:
         transient = transient_table(windowed, sim.intervals, fluid.counters, settings.horizon)
-    if scenario.has_patience:
-        notes.append("the fluid throughput ignores patience; the waits and abandonment of "
-                     "overloaded places with patience follow Whitt's (2006) fluid model")
+    notes.append(f"fluid model compared with: {fluid.model}")
     if scenario.has_time_variation:
         notes.append("time-varying scenario: fluid figures are means over the window "
-                     f"[{settings.warmup:g}, {settings.horizon:g}] read from the counters, which "
-                     "ignore patience (no fluid abandonment)")
+                     f"[{settings.warmup:g}, {settings.horizon:g}] of the fluid trajectory")
     if sim.unstable_replications:
         notes.append(f"{sim.unstable_replications} replications stopped at the job cap")
     notes += [f"fluid: {n}" for n in fluid.notes]

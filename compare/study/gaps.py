@@ -18,31 +18,13 @@ Every row carries ``gap = simulated mean − fluid`` and ``rel_gap = gap / |flui
 fluid value is 0 or infinite): a negative throughput gap means the simulation serves less than
 the fluid model promises.
 
-The fluid figures of a waiting place p (steady state; the fluid model of design.md §4.1 ignores
-patience, so an overloaded place simply shows less outflow than inflow):
-
-* λ_p = inflow at the fluid rates (sources into p and transitions putting jobs into p);
-  ρ_p = outflow at the fluid rates (p's output transitions), the capacity the fluid gives p
-  (:func:`fluid.structure.inflow`, :func:`fluid.structure.outflow`);
-* ρ_p >= λ_p (relative tolerance :data:`PLACE_TOLERANCE`): "underloaded" — no wait, no
-  abandonment, no queue, everyone within the target;
-* ρ_p < λ_p with patience (CDF F): "overloaded" — Whitt's (2006) fluid model with throughput
-  ρ_p: P(Ab) = 1 − ρ_p/λ_p, the served jobs' wait w solves λ_p(1 − F(w)) = ρ_p, queue
-  q = λ_p ∫₀^w (1 − F); the mean wait of all leaving jobs (what the simulation measures) is
-  q/λ_p by Little's law; the share served within the target is ρ_p/λ_p if w <= within, else 0
-  (every served fluid particle waits exactly w);
-* ρ_p < λ_p without patience: "unstable" — the queue grows without bound (wait and queue inf,
-  served within 0);
-* scenarios with profiles, traces or schedules: "time-varying" — the figures over the statistics
-  window are read from the integrated counters (:func:`compare.transient.window_figures`):
-  time-average queue, wait by Little's law, served within by first-in first-out on the fluid
-  curves (:func:`fluid.service_level.fifo_service_level`), and no abandonment (the counters
-  ignore patience).
-
-So ``served_within`` here is the *steady-state service level with abandonment* (Whitt's fluid
-model, where patience counts), read as the FIFO share over the window when the scenario varies
-in time. It is not :func:`fluid.service_level.service_level_verdicts` (1, 0 or undecided from
-the counters alone), which the phase-diagram overlay uses.
+The fluid figures of a waiting place come with the fluid answer itself
+(:attr:`fluid.analysis.FluidResult.places`, :class:`fluid.places.FluidPlace`): in steady state
+one place at a time as in Whitt (2006) at the fluid rates, or from the fluid dynamics with
+abandonment (time-varying nets over the statistics window, nets whose abandoned jobs come back,
+nets with priorities); the fluid model is named in ``FluidResult.model``. ``served_within`` is
+the share of the jobs becoming available that are taken within the target, abandoners counted
+against.
 """
 
 from __future__ import annotations
@@ -56,11 +38,10 @@ import pandas as pd
 from desim import Estimate, SimulationResult
 from fluid.analysis import FluidResult
 from fluid.offered import pool_work
+from fluid.places import PLACE_TOLERANCE, FluidPlace, stationary_place
 from fluid.scenario import Scenario
-from fluid.structure import inflow, outflow, output_transitions, waiting_places
+from fluid.structure import inflow, output_transitions, waiting_places
 
-from .transient import counters_for, window_figures
-from ..formulas.whitt import whitt_fluid
 
 __all__ = [
     "PLACE_TOLERANCE",
@@ -73,10 +54,6 @@ __all__ = [
     "gap_tables",
     "simulated_output",
 ]
-
-#: Relative tolerance below which a place's fluid outflow counts as keeping up with its inflow
-#: (the LP is exact to ~1e-9, the counters' long-run slopes to ~1e-6).
-PLACE_TOLERANCE = 1e-5
 
 ROW_COLUMNS = ["fluid", "mean", "low", "high", "n", "gap", "rel_gap"]
 
@@ -108,67 +85,12 @@ def _row_json(fluid: float, est: Estimate) -> dict:
 # --- fluid figures per place and pool ------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class FluidPlace:
-    """Fluid figures of one waiting place (see the module docstring). ``inflow`` λ_p and
-    ``capacity`` ρ_p in jobs per time unit; ``wait`` mean wait of all leaving jobs and
-    ``wait_served`` wait of served jobs (time units); ``abandoned`` share; ``queue`` jobs
-    waiting; ``served_within`` share taken within ``within`` (the steady-state service level
-    with abandonment of the module docstring; None without a target);
-    ``state``: "idle", "underloaded", "overloaded", "unstable" or "time-varying"."""
-
-    place: str
-    inflow: float
-    capacity: float
-    state: str
-    wait: float
-    wait_served: float
-    abandoned: float
-    queue: float
-    served_within: float | None = None
-    within: float | None = None
-
-    @property
-    def no_wait(self) -> bool:
-        """True when the fluid model says jobs here do not wait."""
-        return self.wait <= 1e-9 * max(1.0, self.wait_served if math.isfinite(self.wait_served)
-                                       else 1.0)
-
-    def to_json(self) -> dict:
-        return {"state": self.state, "inflow": num(self.inflow), "capacity": num(self.capacity),
-                "wait": num(self.wait), "wait_served": num(self.wait_served),
-                "abandoned": num(self.abandoned), "queue": num(self.queue),
-                "served_within": num(self.served_within), "within": num(self.within)}
-
-
 def fluid_place(scenario: Scenario, fluid: FluidResult, place: str) -> FluidPlace:
-    """Fluid figures of ``place`` (see the module docstring)."""
-    target = scenario.targets.service.get(place)
-    within = None if target is None else float(target.within)
-    lam = float(inflow(scenario, place, fluid.rates, fluid.source_rates))
-    rho = float(outflow(scenario, place, fluid.rates))
-    if fluid.window is not None and fluid.counters is not None:
-        sol = counters_for(scenario, fluid.window[1], fluid.counters)
-        fig = window_figures(scenario, sol, place, fluid.window, within)
-        return FluidPlace(place, fig["inflow"], fig["outflow"], "time-varying", fig["wait"],
-                          fig["wait"], 0.0, fig["queue"], fig.get("served_within"), within)
-    if lam <= 0:
-        return FluidPlace(place, lam, rho, "idle", 0.0, 0.0, 0.0, 0.0,
-                          None if target is None else 1.0, within)
-    if rho >= lam * (1 - PLACE_TOLERANCE):
-        return FluidPlace(place, lam, rho, "underloaded", 0.0, 0.0, 0.0, 0.0,
-                          None if target is None else 1.0, within)
-    patience = scenario.places[place].patience
-    if patience is None:
-        return FluidPlace(place, lam, rho, "unstable", math.inf, math.inf, 0.0, math.inf,
-                          None if target is None else 0.0, within)
-    # Whitt (2006) with the fluid's throughput ρ as capacity: servers ρ, mean hold 1
-    w = whitt_fluid(lam, rho, 1.0, patience.cdf)
-    served = None
-    if target is not None:
-        served = (1.0 - w.p_abandon) if w.wait_served <= within * (1 + 1e-12) else 0.0
-    return FluidPlace(place, lam, rho, "overloaded", w.queue / lam, w.wait_served, w.p_abandon,
-                      w.queue, served, within)
+    """Fluid figures of ``place`` (from ``fluid.places``; computed here for a result that has
+    none, e.g. one built by hand)."""
+    if place in fluid.places:
+        return fluid.places[place]
+    return stationary_place(scenario, fluid.rates, fluid.source_rates, place)
 
 
 def fluid_places(scenario: Scenario, fluid: FluidResult) -> dict[str, FluidPlace]:
