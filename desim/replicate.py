@@ -16,6 +16,7 @@ from typing import Callable
 
 from fluid.scenario import Scenario
 
+from .pool import local_pool
 from .results import SimulationResult, summarize
 from .run import RunResult, run_replication
 from .settings import SimulationSettings, resolve_settings
@@ -72,7 +73,7 @@ def run_replications(scenario: Scenario, replications: range | list[int], *,
                 if progress is not None:
                     progress()
             return out
-        with cf.ProcessPoolExecutor(max_workers=min(workers, len(reps))) as pool:
+        with local_pool(min(workers, len(reps))) as pool:
             return _collect([pool.submit(run_replication, scenario, r, **settings) for r in reps],
                             progress, on_result)
     return _collect([executor.submit(run_replication, scenario, r, **settings) for r in reps],
