@@ -10,6 +10,7 @@ killed run can be resumed (:mod:`desim.store`).
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
 import os
 from pathlib import Path
 from typing import Callable
@@ -119,19 +120,21 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
                         interval=cfg.interval, max_jobs=cfg.max_jobs, record_waits=record_waits)
     store = (None if cfg.out is None
              else RunStore.open(Path(cfg.out), scenario, run_settings, resume=cfg.resume))
-    saved = {} if store is None else store.load_all(range(reps))
-    if progress is not None:
-        for _ in saved:
-            progress()
-    todo = [r for r in range(reps) if r not in saved]
-    # (shortcuts change no number, so they are no setting of the run directory: a run saved
-    # with them can be resumed without them)
-    runs = run_replications(scenario, todo, executor=cfg.executor, workers=cfg.workers,
-                            progress=progress, on_result=None if store is None else store.save,
-                            shortcuts=shortcuts, **run_settings) if todo else []
-    runs = sorted([*saved.values(), *runs], key=lambda r: r.replication)
-    result = summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
-                       steady_state=not scenario.has_time_variation)
-    if store is not None:
-        store.save_summary(result)
+    with contextlib.nullcontext() if store is None else store:  # closing it lets go of its lock
+        saved = {} if store is None else store.load_all(range(reps))
+        if progress is not None:
+            for _ in saved:
+                progress()
+        todo = [r for r in range(reps) if r not in saved]
+        # (shortcuts change no number, so they are no setting of the run directory: a run saved
+        # with them can be resumed without them)
+        runs = run_replications(scenario, todo, executor=cfg.executor, workers=cfg.workers,
+                                progress=progress,
+                                on_result=None if store is None else store.save,
+                                shortcuts=shortcuts, **run_settings) if todo else []
+        runs = sorted([*saved.values(), *runs], key=lambda r: r.replication)
+        result = summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
+                           steady_state=not scenario.has_time_variation)
+        if store is not None:
+            store.save_summary(result)
     return result

@@ -5,17 +5,20 @@ Every study that simulates more than one variant (the scale study, the staffing 
 simulated overlay of a phase diagram) runs them through a :class:`Sweep`, so that each variant
 draws from the same base seed (the variants differ by their parameters only, not by their
 luck), the local worker processes are started once for the whole sweep, and a run folder keeps
-each variant's replications apart (``out/<label>``) for ``--resume``.
+each variant's replications apart (``out/<label>``) for ``--resume``; the run folder is locked
+against a second process for the whole sweep.
 """
 
 from __future__ import annotations
 
 import contextlib
+from pathlib import Path
 from typing import Callable
 
 import desim
 from desim import SimulationResult, SimulationSettings
 from desim.pool import local_pool
+from desim.run_folder import FolderLock, writing
 from fluid.scenario import Scenario
 
 __all__ = ["Sweep"]
@@ -42,6 +45,12 @@ class Sweep:
 
     def _start(self) -> None:
         s = self.settings
+        if s.out is not None:
+            # one process per run folder: each variant's store locks its own subfolder, this
+            # keeps a second sweep out of the folder they share
+            with writing(Path(s.out)):
+                Path(s.out).mkdir(parents=True, exist_ok=True)
+            self._stack.enter_context(FolderLock(s.out))
         if s.executor is None and s.local_workers() > 1:
             # the local pool of desim: workers that end with this process, stopped at once
             # when the sweep is left by an exception
