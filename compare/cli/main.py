@@ -19,6 +19,7 @@ from typing import Any, Sequence
 from desim import DaskError, StoreError
 from fluid.errors import ScenarioError
 
+from .destinations import check_destinations
 from .outcome import InputError
 from .parser import UsageError, build_parser
 
@@ -81,6 +82,7 @@ def main(argv: Sequence[str] | None = None) -> int:
 def _main(parser, argv) -> int:
     try:
         args = parser.parse_args(argv)
+        check_destinations(args)  # every place it will write, before it computes anything
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             outcome = args.handler(args)
