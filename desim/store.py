@@ -4,8 +4,11 @@ A run directory holds
 
 * ``manifest.json``: what the run is (a fingerprint of the scenario, the base seed, horizon,
   warm-up, interval, job limit, recorded waits, the program version), written before anything
-  else, and the sha256 of every replication file (``checksums``), recorded just before the file
-  itself is written;
+  else, and the sha256 of every replication file (``checksums``);
+* ``.checksums.journal`` while a run is going: the sha256 of each replication file appended
+  (and fsynced) just before the file itself is written, folded into the manifest when the store
+  is closed or, after a kill, when the folder is opened again (one line per replication instead
+  of rewriting the whole manifest each time);
 * ``rep-000012.json``: one file per finished replication (a :class:`desim.run.RunResult`), written
   the moment it arrives;
 * ``summary.json``: the combined result (:meth:`SimulationResult.to_json`), once all are done;
@@ -55,6 +58,8 @@ __all__ = ["RunStore", "StoreError", "FolderLock", "FORMAT", "run_from_json", "r
 FORMAT = 2
 MANIFEST = "manifest.json"
 SUMMARY = "summary.json"
+JOURNAL = ".checksums.journal"
+_JOURNAL_LINE = re.compile(r"([0-9a-f]{64}) (rep-\d+\.json)")
 _REP_FILE = re.compile(r"rep-(\d+)\.json")
 _REP_LIKE = re.compile(r"rep-.*\.json")  # what a user might take for a replication file
 
@@ -223,6 +228,7 @@ class RunStore:
         self.directory = directory
         self.manifest = manifest
         self._lock: FolderLock | None = None
+        self._journal: int | None = None  # file descriptor, opened at the first save
 
     @classmethod
     def open(cls, directory: str | os.PathLike, scenario: Scenario, settings: Mapping, *,
@@ -275,6 +281,7 @@ class RunStore:
             store._check_same(manifest)
             store.manifest.setdefault("checksums", {})
             store._remove_temporaries()
+            store._fold_journal()
             return store
         others = [p.name for p in directory.iterdir()
                   if not p.name.startswith(TEMP_PREFIX) and p.name != LOCK]
@@ -287,10 +294,36 @@ class RunStore:
         return store
 
     def close(self) -> None:
-        """Let go of the directory (its lock); the files stay."""
-        if self._lock is not None:
-            self._lock.release()
-            self._lock = None
+        """Record the checksums in the manifest and let go of the directory (its lock)."""
+        try:
+            if self._journal is not None:
+                os.close(self._journal)
+                self._journal = None
+                self._write_manifest()
+                with suppress(FileNotFoundError):
+                    os.unlink(self.directory / JOURNAL)
+        finally:
+            if self._lock is not None:
+                self._lock.release()
+                self._lock = None
+
+    def _fold_journal(self) -> None:
+        """The checksums a killed run appended to the journal, into the manifest."""
+        path = self.directory / JOURNAL
+        try:
+            text = path.read_text(encoding="ascii", errors="replace")
+        except FileNotFoundError:
+            return
+        except OSError as exc:
+            raise StoreError(f"{path}: cannot read the checksums of the run ({exc})") from exc
+        checksums = self.manifest["checksums"]
+        for line in text.splitlines():
+            m = _JOURNAL_LINE.fullmatch(line)
+            if m:  # (a torn last line: its file was never written, it is run again)
+                checksums[m.group(2)] = m.group(1)
+        self._write_manifest()
+        with writing(path):
+            os.unlink(path)
 
     def __enter__(self) -> "RunStore":
         return self
@@ -360,14 +393,21 @@ class RunStore:
         return sorted(out)
 
     def save(self, run: RunResult) -> Path:
-        """Save one finished replication (atomically): its sha256 goes into the manifest first,
-        then the file, so that a run killed between the two leaves a replication to run again,
-        never a file without its checksum."""
+        """Save one finished replication (atomically): its sha256 goes into the journal first
+        (fsynced), then the file, so that a run killed between the two leaves a replication to
+        run again, never a file without its checksum."""
         doc = {"format": FORMAT, "run": run_to_json(run)}
         text = json.dumps(doc, separators=(",", ":"), allow_nan=False) + "\n"
         path = self.path_of(run.replication)
-        self.manifest.setdefault("checksums", {})[path.name] = _sha256(text.encode("utf-8"))
-        self._write_manifest()
+        digest = _sha256(text.encode("utf-8"))
+        journal = self.directory / JOURNAL
+        with writing(journal):
+            if self._journal is None:
+                self._journal = os.open(journal, os.O_WRONLY | os.O_APPEND | os.O_CREAT
+                                        | os.O_CLOEXEC, 0o644)
+            os.write(self._journal, f"{digest} {path.name}\n".encode("ascii"))
+            os.fsync(self._journal)
+        self.manifest.setdefault("checksums", {})[path.name] = digest
         with writing(path):
             return write_atomic(path, text)
 

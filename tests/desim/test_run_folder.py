@@ -196,6 +196,40 @@ def test_a_stray_replication_file_is_named_as_it_is(net, tmp_path):
         "(no checksum recorded for it); delete it to have that replication run again")
 
 
+def test_checksums_of_a_killed_run_are_read_from_its_journal(net, tmp_path, monkeypatch):
+    # the journal holds one line per saved file; a killed process never folds it into the
+    # manifest, the next open does
+    from desim import run_replication
+
+    s = net(DESK)
+    settings = dict(horizon=100.0, warmup=50.0, seed=3, interval=None, max_jobs=None,
+                    record_waits=False)
+    store = RunStore.open(tmp_path, s, settings)
+    runs = [run_replication(s, r, **settings) for r in range(2)]
+    for run in runs:
+        store.save(run)
+    # as the kernel does for a killed process: its files closed, its lock gone, nothing folded
+    os.close(store._journal)
+    store._lock.release()
+    assert json.loads((tmp_path / MANIFEST).read_text())["checksums"] == {}
+    journal = (tmp_path / store_module.JOURNAL).read_text().splitlines()
+    assert [line.split()[1] for line in journal] == ["rep-000000.json", "rep-000001.json"]
+    with open(tmp_path / store_module.JOURNAL, "a") as f:
+        f.write("0123abc")  # a line torn by the kill: ignored
+    replicate_module = importlib.import_module("desim.replicate")
+    done = []
+    real = replicate_module.run_replication
+    monkeypatch.setattr(replicate_module, "run_replication",
+                        lambda sc, r, **kw: done.append(r) or real(sc, r, **kw))
+    resumed = replicate(s, reps=3, horizon=100, workers=1, out=tmp_path, resume=True)
+    assert done == [2]
+    monkeypatch.undo()
+    assert resumed.to_json() == replicate(s, reps=3, horizon=100, workers=1).to_json()
+    assert sorted(json.loads((tmp_path / MANIFEST).read_text())["checksums"]) == [
+        "rep-000000.json", "rep-000001.json", "rep-000002.json"]
+    assert not (tmp_path / store_module.JOURNAL).exists()
+
+
 def test_a_kill_between_checksum_and_file_leaves_a_replication_to_run_again(net, tmp_path,
                                                                            monkeypatch):
     s = net(DESK)
