@@ -56,7 +56,8 @@ def run_replications(scenario: Scenario, replications: range | list[int], *,
 
     ``executor``: any executor with ``submit`` (e.g. ``dask.distributed.Client.get_executor()``);
     otherwise a local process pool with ``workers`` processes (None: one per CPU, at most one per
-    replication; 1: run here, in this process). ``progress()`` is called once per finished
+    replication; 1: run here, in this process), from :func:`desim.pool.local_pool`: its workers
+    end when this process does, and at once when the run is interrupted. ``progress()`` is called once per finished
     replication. ``on_result(run)`` is called in this process with each replication as it finishes
     (in completion order), before ``progress()``."""
     reps = list(replications)

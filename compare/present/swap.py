@@ -103,9 +103,15 @@ def _remove(path: Path) -> None:
 
 
 def _fsync_dir(directory: Path) -> None:
-    fd = os.open(directory, os.O_RDONLY)
+    # makes the renames durable; a system that cannot open or sync a folder just goes without
+    try:
+        fd = os.open(directory, os.O_RDONLY)
+    except OSError:
+        return
     try:
         os.fsync(fd)
+    except OSError:
+        pass
     finally:
         os.close(fd)
 
