@@ -10,12 +10,14 @@ killed run can be resumed (:mod:`desim.store`).
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
 import os
 from pathlib import Path
 from typing import Callable
 
 from fluid.scenario import Scenario
 
+from .pool import local_pool
 from .results import SimulationResult, summarize
 from .run import RunResult, run_replication
 from .settings import SimulationSettings, resolve_settings
@@ -54,7 +56,8 @@ def run_replications(scenario: Scenario, replications: range | list[int], *,
 
     ``executor``: any executor with ``submit`` (e.g. ``dask.distributed.Client.get_executor()``);
     otherwise a local process pool with ``workers`` processes (None: one per CPU, at most one per
-    replication; 1: run here, in this process). ``progress()`` is called once per finished
+    replication; 1: run here, in this process), from :func:`desim.pool.local_pool`: its workers
+    end when this process does, and at once when the run is interrupted. ``progress()`` is called once per finished
     replication. ``on_result(run)`` is called in this process with each replication as it finishes
     (in completion order), before ``progress()``."""
     reps = list(replications)
@@ -72,7 +75,7 @@ def run_replications(scenario: Scenario, replications: range | list[int], *,
                 if progress is not None:
                     progress()
             return out
-        with cf.ProcessPoolExecutor(max_workers=min(workers, len(reps))) as pool:
+        with local_pool(min(workers, len(reps))) as pool:
             return _collect([pool.submit(run_replication, scenario, r, **settings) for r in reps],
                             progress, on_result)
     return _collect([executor.submit(run_replication, scenario, r, **settings) for r in reps],
@@ -118,19 +121,21 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
                         interval=cfg.interval, max_jobs=cfg.max_jobs, record_waits=record_waits)
     store = (None if cfg.out is None
              else RunStore.open(Path(cfg.out), scenario, run_settings, resume=cfg.resume))
-    saved = {} if store is None else store.load_all(range(reps))
-    if progress is not None:
-        for _ in saved:
-            progress()
-    todo = [r for r in range(reps) if r not in saved]
-    # (shortcuts change no number, so they are no setting of the run directory: a run saved
-    # with them can be resumed without them)
-    runs = run_replications(scenario, todo, executor=cfg.executor, workers=cfg.workers,
-                            progress=progress, on_result=None if store is None else store.save,
-                            shortcuts=shortcuts, **run_settings) if todo else []
-    runs = sorted([*saved.values(), *runs], key=lambda r: r.replication)
-    result = summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
-                       steady_state=not scenario.has_time_variation)
-    if store is not None:
-        store.save_summary(result)
+    with contextlib.nullcontext() if store is None else store:  # closing it lets go of its lock
+        saved = {} if store is None else store.load_all(range(reps))
+        if progress is not None:
+            for _ in saved:
+                progress()
+        todo = [r for r in range(reps) if r not in saved]
+        # (shortcuts change no number, so they are no setting of the run directory: a run saved
+        # with them can be resumed without them)
+        runs = run_replications(scenario, todo, executor=cfg.executor, workers=cfg.workers,
+                                progress=progress,
+                                on_result=None if store is None else store.save,
+                                shortcuts=shortcuts, **run_settings) if todo else []
+        runs = sorted([*saved.values(), *runs], key=lambda r: r.replication)
+        result = summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
+                           steady_state=not scenario.has_time_variation)
+        if store is not None:
+            store.save_summary(result)
     return result

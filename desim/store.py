@@ -4,10 +4,15 @@ A run directory holds
 
 * ``manifest.json``: what the run is (a fingerprint of the scenario, the base seed, horizon,
   warm-up, interval, job limit, recorded waits, the program version), written before anything
-  else;
+  else, and the sha256 of every replication file (``checksums``);
+* ``.checksums.journal`` while a run is going: the sha256 of each replication file appended
+  (and fsynced) just before the file itself is written, folded into the manifest when the store
+  is closed or, after a kill, when the folder is opened again (one line per replication instead
+  of rewriting the whole manifest each time);
 * ``rep-000012.json``: one file per finished replication (a :class:`desim.run.RunResult`), written
   the moment it arrives;
-* ``summary.json``: the combined result (:meth:`SimulationResult.to_json`), once all are done.
+* ``summary.json``: the combined result (:meth:`SimulationResult.to_json`), once all are done;
+* ``.fluidgap.lock`` while a process uses the directory (see below).
 
 Every file is written atomically (a temporary file in the same directory, flushed and fsynced,
 then ``os.replace``), so a run killed at any instant leaves only whole files. Replication files
@@ -16,7 +21,13 @@ replication read back is bit-for-bit the one computed and a resumed run ends wit
 identical to an uninterrupted one. Non-finite floats are written as ``null`` (nan), ``"inf"`` and
 ``"-inf"`` to keep the files strict JSON.
 
-One run directory serves one process at a time.
+One run directory serves one process at a time: :meth:`RunStore.open` takes an exclusive
+``fcntl.flock`` on ``.fluidgap.lock`` in it (the file holds the owner's process id and is removed
+when the store is closed; the kernel drops the lock of a process that dies), and a second
+process is refused with a :class:`StoreError` naming the directory and that process id. On
+``--resume`` every replication file is read back only if its sha256 is the one recorded in the
+manifest: a file edited, damaged or put there by hand (``rep-5.json``) is refused by its own
+name.
 """
 
 from __future__ import annotations
@@ -26,7 +37,6 @@ import json
 import math
 import os
 import re
-import tempfile
 from contextlib import suppress
 from pathlib import Path
 from typing import Any, Iterable, Mapping
@@ -36,57 +46,21 @@ import numpy as np
 from fluid.scenario import Scenario
 
 from .run import DEFAULT_MAX_JOBS, RunResult
+from .run_folder import LOCK, TEMP_PREFIX, FolderLock, StoreError, write_atomic, writing
 from .warmup import MserResult
 
-__all__ = ["RunStore", "StoreError", "FORMAT", "run_from_json", "run_to_json",
+__all__ = ["RunStore", "StoreError", "FolderLock", "FORMAT", "run_from_json", "run_to_json",
            "scenario_fingerprint", "write_atomic"]
 
 #: Version of the file layout; a directory written with another layout is refused.
-FORMAT = 1
+#: 2: the manifest records the sha256 of every replication file.
+FORMAT = 2
 MANIFEST = "manifest.json"
 SUMMARY = "summary.json"
-_TEMP_PREFIX = ".tmp-"
+JOURNAL = ".checksums.journal"
+_JOURNAL_LINE = re.compile(r"([0-9a-f]{64}) (rep-\d+\.json)")
 _REP_FILE = re.compile(r"rep-(\d+)\.json")
-
-
-class StoreError(ValueError):
-    """A run directory that cannot be used as asked (bad input for the command line: exit 2)."""
-
-
-# --- files -------------------------------------------------------------------------------------
-
-
-def _fsync_dir(directory: Path) -> None:
-    # makes the rename itself durable; not every platform can open a directory
-    try:
-        fd = os.open(directory, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
-
-
-def write_atomic(path: str | os.PathLike, text: str) -> Path:
-    """Write ``text`` to ``path`` so that a reader (or a crash) sees the old file or the whole
-    new one, never a part: temporary file in the same directory, fsync, ``os.replace``."""
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=_TEMP_PREFIX, suffix=".part", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(text)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        with suppress(OSError):
-            os.unlink(tmp)
-        raise
-    _fsync_dir(path.parent)
-    return path
+_REP_LIKE = re.compile(r"rep-.*\.json")  # what a user might take for a replication file
 
 
 # --- exact JSON of a replication -------------------------------------------------------------------
@@ -248,23 +222,31 @@ _SAME = {"format": "file layout", "version": "fluidgap version", "scenario_sha25
 
 
 class RunStore:
-    """A run directory (see the module docstring). Use :meth:`open`."""
+    """A run directory (see the module docstring). Use :meth:`open` (as a context manager, or
+    :meth:`close` when done, which lets go of the directory's lock)."""
 
     def __init__(self, directory: Path, manifest: dict):
         self.directory = directory
         self.manifest = manifest
+        self._lock: FolderLock | None = None
+        self._journal: int | None = None  # file descriptor, opened at the first save
 
     @classmethod
     def open(cls, directory: str | os.PathLike, scenario: Scenario, settings: Mapping, *,
              resume: bool = False) -> "RunStore":
         """Open ``directory`` for a run of ``scenario`` with ``settings`` (the keyword settings of
-        :func:`desim.run_replication`: horizon, warmup, seed, ...).
+        :func:`desim.run_replication`: horizon, warmup, seed, ...), locked against other
+        processes until :meth:`close`.
 
         Without ``resume`` the directory must be new or empty; it gets a manifest. With
         ``resume`` a directory holding a manifest must describe the same run (same scenario,
         seed, horizon, warm-up, ...), and its finished replications are reused; a new or empty
-        directory starts afresh. Raises :class:`StoreError` otherwise."""
+        directory starts afresh. Raises :class:`StoreError` otherwise (also when another process
+        uses the directory, or the file system refuses to write)."""
         directory = Path(directory)
+        if directory.is_symlink() and not directory.exists():
+            raise StoreError(f"{directory} is a symbolic link to nothing "
+                             f"({os.readlink(directory)})")
         if directory.exists() and not directory.is_dir():
             raise StoreError(f"{directory} exists and is not a directory")
         manifest = {
@@ -274,7 +256,23 @@ class RunStore:
             "scenario": scenario.name,
             "scenario_sha256": scenario_fingerprint(scenario),
             **_normal_settings(settings),
+            "checksums": {},
         }
+        with writing(directory):
+            directory.mkdir(parents=True, exist_ok=True)
+        # the lock comes before anything is read or removed: another process's temporary files
+        # are its own business
+        lock = FolderLock(directory).acquire()
+        try:
+            store = cls._opened(directory, manifest, resume)
+        except BaseException:
+            lock.release()
+            raise
+        store._lock = lock
+        return store
+
+    @classmethod
+    def _opened(cls, directory: Path, manifest: dict, resume: bool) -> "RunStore":
         path = directory / MANIFEST
         if path.exists():
             if not resume:
@@ -282,18 +280,62 @@ class RunStore:
                                  "directory")
             store = cls(directory, cls._read_manifest(path))
             store._check_same(manifest)
+            store.manifest.setdefault("checksums", {})
             store._remove_temporaries()
+            store._fold_journal()
             return store
-        if directory.exists():
-            others = [p.name for p in directory.iterdir() if not p.name.startswith(_TEMP_PREFIX)]
-            if others:
-                raise StoreError(f"{directory} is not empty and holds no run (no {MANIFEST}); "
-                                 "use a new or empty directory")
-        directory.mkdir(parents=True, exist_ok=True)
+        others = [p.name for p in directory.iterdir()
+                  if not p.name.startswith(TEMP_PREFIX) and p.name != LOCK]
+        if others:
+            raise StoreError(f"{directory} is not empty and holds no run (no {MANIFEST}); "
+                             "use a new or empty directory")
         store = cls(directory, manifest)
         store._remove_temporaries()
-        write_atomic(path, json.dumps(manifest, indent=2) + "\n")
+        store._write_manifest()
         return store
+
+    def close(self) -> None:
+        """Record the checksums in the manifest and let go of the directory (its lock)."""
+        try:
+            if self._journal is not None:
+                os.close(self._journal)
+                self._journal = None
+                self._write_manifest()
+                with suppress(FileNotFoundError):
+                    os.unlink(self.directory / JOURNAL)
+        finally:
+            if self._lock is not None:
+                self._lock.release()
+                self._lock = None
+
+    def _fold_journal(self) -> None:
+        """The checksums a killed run appended to the journal, into the manifest."""
+        path = self.directory / JOURNAL
+        try:
+            text = path.read_text(encoding="ascii", errors="replace")
+        except FileNotFoundError:
+            return
+        except OSError as exc:
+            raise StoreError(f"{path}: cannot read the checksums of the run ({exc})") from exc
+        checksums = self.manifest["checksums"]
+        for line in text.splitlines():
+            m = _JOURNAL_LINE.fullmatch(line)
+            if m:  # (a torn last line: its file was never written, it is run again)
+                checksums[m.group(2)] = m.group(1)
+        self._write_manifest()
+        with writing(path):
+            os.unlink(path)
+
+    def __enter__(self) -> "RunStore":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def _write_manifest(self) -> None:
+        path = self.directory / MANIFEST
+        with writing(path):
+            write_atomic(path, json.dumps(self.manifest, indent=2) + "\n")
 
     @staticmethod
     def _read_manifest(path: Path) -> dict:
@@ -303,12 +345,14 @@ class RunStore:
             raise StoreError(f"{path}: cannot read the run manifest ({exc})") from exc
         if not isinstance(doc, dict) or doc.get("kind") != "fluidgap replications":
             raise StoreError(f"{path} is not a fluidgap run manifest")
+        if not isinstance(doc.get("checksums", {}), dict):
+            raise StoreError(f"{path}: 'checksums' is not a mapping of file names")
         return doc
 
     def _check_same(self, wanted: dict) -> None:
         have = self.manifest
         for key in sorted(set(have) | set(wanted), key=lambda k: (k not in _SAME, k)):
-            if key in ("kind", "scenario"):
+            if key in ("kind", "scenario", "checksums"):
                 continue
             old, new = have.get(key), wanted.get(key)
             if old == new or (key == "version" and "unknown" in (old, new)):
@@ -325,7 +369,7 @@ class RunStore:
 
     def _remove_temporaries(self) -> None:
         # half-written files of a killed run; whole files are never named like this
-        for p in self.directory.glob(_TEMP_PREFIX + "*"):
+        for p in self.directory.glob(TEMP_PREFIX + "*"):
             with suppress(OSError):
                 p.unlink()
 
@@ -335,29 +379,60 @@ class RunStore:
         return self.directory / f"rep-{replication:06d}.json"
 
     def finished(self) -> list[int]:
-        """Indices of the replications saved so far, in order."""
+        """Indices of the replications saved so far, in order. A file that looks like a
+        replication file but is not named as this store names them (``rep-5.json``) is refused
+        by its own name: it was not written by a run."""
         out = []
         for p in self.directory.iterdir():
+            if not _REP_LIKE.fullmatch(p.name):
+                continue
             m = _REP_FILE.fullmatch(p.name)
-            if m:
-                out.append(int(m.group(1)))
+            if m is None or self.path_of(int(m.group(1))).name != p.name:
+                raise StoreError(f"{p} is not a replication file of this run (they are named "
+                                 "like rep-000012.json); move it out of the directory")
+            out.append(int(m.group(1)))
         return sorted(out)
 
     def save(self, run: RunResult) -> Path:
-        """Save one finished replication (atomically)."""
+        """Save one finished replication (atomically): its sha256 goes into the journal first
+        (fsynced), then the file, so that a run killed between the two leaves a replication to
+        run again, never a file without its checksum."""
         doc = {"format": FORMAT, "run": run_to_json(run)}
-        return write_atomic(self.path_of(run.replication),
-                            json.dumps(doc, separators=(",", ":"), allow_nan=False) + "\n")
+        text = json.dumps(doc, separators=(",", ":"), allow_nan=False) + "\n"
+        path = self.path_of(run.replication)
+        digest = _sha256(text.encode("utf-8"))
+        journal = self.directory / JOURNAL
+        with writing(journal):
+            if self._journal is None:
+                self._journal = os.open(journal, os.O_WRONLY | os.O_APPEND | os.O_CREAT
+                                        | os.O_CLOEXEC, 0o644)
+            os.write(self._journal, f"{digest} {path.name}\n".encode("ascii"))
+            os.fsync(self._journal)
+        self.manifest.setdefault("checksums", {})[path.name] = digest
+        with writing(path):
+            return write_atomic(path, text)
 
     def load(self, replication: int) -> RunResult:
-        """Read one saved replication back, checking that it belongs to this run."""
+        """Read one saved replication back, checking that it is the file this run wrote (its
+        sha256 in the manifest) and that it belongs to this run."""
         path = self.path_of(replication)
+        again = "; delete it to have that replication run again"
         try:
-            doc = json.loads(path.read_text(encoding="utf-8"))
+            data = path.read_bytes()
+        except OSError as exc:
+            raise StoreError(f"{path} is damaged ({type(exc).__name__}: {exc}){again}") from exc
+        recorded = self.manifest.get("checksums", {}).get(path.name)
+        if recorded is None:
+            raise StoreError(f"{path} was not saved by the run described by {MANIFEST} (no "
+                             f"checksum recorded for it){again}")
+        if _sha256(data) != recorded:
+            raise StoreError(f"{path} is damaged or was edited after it was saved (its sha256 "
+                             f"differs from the one in {MANIFEST}){again}")
+        try:
+            doc = json.loads(data.decode("utf-8"))
             run = run_from_json(doc["run"])
-        except (OSError, ValueError, KeyError, TypeError) as exc:
-            raise StoreError(f"{path} is damaged ({type(exc).__name__}: {exc}); delete it to "
-                             "have that replication run again") from exc
+        except (ValueError, KeyError, TypeError) as exc:
+            raise StoreError(f"{path} is damaged ({type(exc).__name__}: {exc}){again}") from exc
         m = self.manifest
         if (run.replication, run.seed, run.horizon, run.warmup) != (
                 replication, m.get("seed"), m.get("horizon"), m.get("warmup")):
@@ -371,5 +446,11 @@ class RunStore:
 
     def save_summary(self, result) -> Path:
         """Save the combined :class:`desim.SimulationResult` as ``summary.json``."""
-        return write_atomic(self.directory / SUMMARY,
-                            json.dumps(_enc(result.to_json()), indent=2, allow_nan=False) + "\n")
+        path = self.directory / SUMMARY
+        with writing(path):
+            return write_atomic(path, json.dumps(_enc(result.to_json()), indent=2,
+                                                 allow_nan=False) + "\n")
+
+
+def _sha256(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()

@@ -11,15 +11,19 @@ from desim.settings import SimulationSettings
 from fluid.scenario import Scenario
 
 from ..study.demo import demo_path
+from .destinations import check_inputs_kept, scenario_inputs
 from .outcome import InputError
 
 __all__ = ["load", "settings_from_flags", "simulation", "executor", "Progress"]
 
 
 def load(args) -> Scenario:
-    """The scenario named on the command line (the built-in demo when none), with ``--set``."""
+    """The scenario named on the command line (the built-in demo when none), with ``--set``;
+    a destination flag that would overwrite one of its files is refused here."""
     path = getattr(args, "scenario", None) or demo_path()
-    return load_scenario(path, overrides=args.overrides)
+    scenario = load_scenario(path, overrides=args.overrides)
+    check_inputs_kept(args, scenario_inputs(scenario))
+    return scenario
 
 
 def settings_from_flags(args, run) -> SimulationSettings:

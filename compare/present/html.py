@@ -17,7 +17,6 @@ import json
 import math
 import os
 import re
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping
@@ -26,13 +25,23 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
+from .swap import replace_folder
 from .tables import fmt
 
-__all__ = ["ReportFiles", "write_report", "json_ready", "figure_png"]
+__all__ = ["ReportFiles", "ReportFolderError", "write_report", "report_folder_problem",
+           "json_ready", "figure_png"]
 
 #: Resolution of the embedded figures (dots per inch).
 DPI = 110
 _NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]*")
+#: What a report folder holds: its page, its JSON, tables and figures, and the temporary files
+#: that an earlier version of the writer could leave behind when killed.
+_REPORT_FILE = re.compile(r"report\.html|result\.json|[A-Za-z0-9][A-Za-z0-9_.-]*\.(csv|png)"
+                          r"|\..+\.tmp")
+
+
+class ReportFolderError(ValueError):
+    """The destination of a report is not a folder that may be replaced by one."""
 
 _CSS = """
 body { font-family: system-ui, -apple-system, "Segoe UI", Helvetica, Arial, sans-serif;
@@ -196,6 +205,37 @@ def _check_names(kind: str, names) -> None:
 # --- writing --------------------------------------------------------------------------------------
 
 
+def report_folder_problem(directory: str | os.PathLike) -> str | None:
+    """Why ``directory`` cannot receive a report (it is replaced whole), or None: it is missing,
+    empty, or holds a report (``report.html`` or ``result.json`` with tables and figures
+    only). Anything else (a file, a link to nothing, a folder with other files) is kept out of
+    harm's way."""
+    path = Path(directory)
+    if path.is_symlink() and not path.exists():
+        return f"is a symbolic link to nothing ({os.readlink(path)})"
+    if not path.exists():
+        return None
+    if not path.is_dir():
+        return "is a file, not a folder"
+    try:
+        entries = list(path.iterdir())
+    except OSError as exc:
+        return f"cannot be read ({exc.strerror})"
+    if not entries:
+        return None
+    foreign = sorted(p.name for p in entries
+                     if not (_REPORT_FILE.fullmatch(p.name) and p.is_file()
+                             and not p.is_symlink()))
+    if foreign:
+        shown = ", ".join(foreign[:3]) + (", ..." if len(foreign) > 3 else "")
+        return (f"holds files that are not part of a fluidgap report ({shown}) and would be "
+                "lost: use a new or empty folder")
+    if not any(p.name in ("report.html", "result.json") for p in entries):
+        return ("holds files but no report.html or result.json: not a fluidgap report, and "
+                "they would be lost: use a new or empty folder")
+    return None
+
+
 def write_report(directory: str | os.PathLike, *, title: str, summary_lines: list[str],
                  tables: Mapping[str, pd.DataFrame], figures: Mapping[str, Figure],
                  json_doc: Mapping[str, Any], caution: str,
@@ -208,13 +248,16 @@ def write_report(directory: str | os.PathLike, *, title: str, summary_lines: lis
     precision), ``result.json`` (``json_doc`` with inf and nan as null, strict JSON) and, with
     ``write_png``, ``<name>.png`` per figure. Table and figure names become file names, so they
     must be plain (letters, digits, ``_ - .``). Everything is built before anything is written
-    and each file is moved into place atomically, ``report.html`` last: if building or writing
-    fails, no new file is left behind and an earlier report in the same directory is kept whole
-    (only a failing ``os.replace`` itself, e.g. a file system gone away, could leave some CSV or
-    JSON files replaced and ``report.html`` not)."""
+    and the folder is swapped in whole (see the module docstring): if building or writing
+    fails, nothing new is left behind and an earlier report in ``directory`` is kept whole; a
+    ``directory`` that holds anything but a report raises :class:`ReportFolderError` before
+    anything is built."""
     _check_names("table", tables)
     _check_names("figure", figures)
     directory = Path(directory)
+    problem = report_folder_problem(directory)
+    if problem is not None:
+        raise ReportFolderError(f"{directory} {problem}")
     # 1. everything in memory; any error here leaves the disk untouched
     tidy = {name: _tidy(t) for name, t in tables.items()}
     csv_text = {name: t.to_csv(index=False, lineterminator="\n") for name, t in tidy.items()}
@@ -229,24 +272,8 @@ def write_report(directory: str | os.PathLike, *, title: str, summary_lines: lis
     contents += [("result.json", json_text.encode("utf-8")),
                  ("report.html", page.encode("utf-8"))]
 
-    # 2. temporary siblings, then os.replace one by one (report.html last)
-    directory.mkdir(parents=True, exist_ok=True)
-    temps: list[tuple[str, Path]] = []
-    try:
-        for filename, data in contents:
-            fd, tmp = tempfile.mkstemp(prefix=f".{filename}.", suffix=".tmp", dir=directory)
-            temps.append((filename, Path(tmp)))
-            with os.fdopen(fd, "wb") as f:
-                f.write(data)
-                f.flush()
-                os.fsync(f.fileno())
-            os.chmod(tmp, 0o644)  # mkstemp makes owner-only files; a report is meant to be shared
-        for filename, tmp in temps:
-            os.replace(tmp, directory / filename)
-    except BaseException:
-        for _, tmp in temps:
-            tmp.unlink(missing_ok=True)
-        raise
+    # 2. the whole folder at once (old or new, never a mix)
+    replace_folder(directory, contents)
     return ReportFiles(
         directory=directory, html=directory / "report.html", json=directory / "result.json",
         csv={n: directory / f"{n}.csv" for n in tables},

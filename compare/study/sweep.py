@@ -5,16 +5,20 @@ Every study that simulates more than one variant (the scale study, the staffing 
 simulated overlay of a phase diagram) runs them through a :class:`Sweep`, so that each variant
 draws from the same base seed (the variants differ by their parameters only, not by their
 luck), the local worker processes are started once for the whole sweep, and a run folder keeps
-each variant's replications apart (``out/<label>``) for ``--resume``.
+each variant's replications apart (``out/<label>``) for ``--resume``; the run folder is locked
+against a second process for the whole sweep.
 """
 
 from __future__ import annotations
 
-import concurrent.futures as cf
+import contextlib
+from pathlib import Path
 from typing import Callable
 
 import desim
 from desim import SimulationResult, SimulationSettings
+from desim.pool import local_pool
+from desim.run_folder import FolderLock, writing
 from fluid.scenario import Scenario
 
 __all__ = ["Sweep"]
@@ -29,21 +33,34 @@ class Sweep:
                  progress: Callable[[], object] | None = None):
         self.settings = settings
         self.progress = progress
-        self._own_pool: cf.ProcessPoolExecutor | None = None
+        self._stack = contextlib.ExitStack()
 
     def __enter__(self) -> "Sweep":
-        s = self.settings
-        if s.executor is None and s.local_workers() > 1:
-            self._own_pool = cf.ProcessPoolExecutor(max_workers=s.local_workers())
-            self.settings = s.with_changes(executor=self._own_pool)
-        elif s.executor is None:
-            self.settings = s.with_changes(workers=1)
+        try:
+            self._start()
+        except BaseException:
+            self._stack.close()
+            raise
         return self
 
+    def _start(self) -> None:
+        s = self.settings
+        if s.out is not None:
+            # one process per run folder: each variant's store locks its own subfolder, this
+            # keeps a second sweep out of the folder they share
+            with writing(Path(s.out)):
+                Path(s.out).mkdir(parents=True, exist_ok=True)
+            self._stack.enter_context(FolderLock(s.out))
+        if s.executor is None and s.local_workers() > 1:
+            # the local pool of desim: workers that end with this process, stopped at once
+            # when the sweep is left by an exception
+            pool = self._stack.enter_context(local_pool(s.local_workers()))
+            self.settings = s.with_changes(executor=pool)
+        elif s.executor is None:
+            self.settings = s.with_changes(workers=1)
+
     def __exit__(self, *exc) -> None:
-        if self._own_pool is not None:
-            self._own_pool.shutdown(cancel_futures=True)
-            self._own_pool = None
+        self._stack.__exit__(*exc)
 
     def run(self, variant: Scenario, label: str, *,
             record_waits: bool = False) -> SimulationResult:
