@@ -270,8 +270,10 @@ def _integrate(scenario, dt, horizon, staff, extra_staff, max_points,
     markings, waiting = _markings(scenario, flat, counters, src_z, level, abandoned, n)
     hol = {}
     for i, p in enumerate(flat.waiting_places):
-        age = flat.arrays["hol_age"][i].astype(float) * dt
-        hol[p] = np.where(flat.arrays["hol_age"][i] >= 0, age, np.nan)
+        # the oldest cohort still waiting entered a steps ago: the one just served is a step
+        # older, and at the step's midpoint (a + 1) dt has passed since it became available
+        age = flat.arrays["hol_age"][i]
+        hol[p] = np.where(age >= 0, (age + 1.0) * dt, np.nan)
     rates, srates, period = _long_run({**counters, **{f"\0{p}": a for p, a in abandoned.items()}},
                                       src_z, dt)
     ab_rates = {p: rates.pop(f"\0{p}") for p in abandoned}
@@ -348,11 +350,16 @@ def _markings(scenario, flat, counters, src_z, level, abandoned, n):
             markings[p] = level[p] + into - out
             continue
         into = into + lost_into.get(p, 0.0)
+        taken = out
         if p in abandoned:
             out = out + abandoned[p]
         markings[p] = into - out
         if p in flat.avail_rows:
-            waiting[p] = flat.row(flat.avail_rows[p]) - out
+            # the content at mid-step: the grid serves a step's fluid at its end, so the content
+            # just after is low by half of it (and just before high by half); the mean over the
+            # step, which a time average needs, lies between (exact to O(dt^2) when smooth)
+            half = 0.5 * np.diff(taken, prepend=taken[:1])
+            waiting[p] = flat.row(flat.avail_rows[p]) - out + half
         elif p in flat.distributed:
             waiting[p] = flat.row(flat.hold_rows[p]) - out
         else:

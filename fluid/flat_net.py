@@ -82,7 +82,7 @@ class FlatNet:
         for pool, level in levels.items():
             base[self.base_of[pool]] = level
         arrays["base"] = base
-        for key in ("coh_amt", "coh_step", "coh_head", "coh_len", "waiting", "hol_age"):
+        for key in ("coh_amt", "coh_step", "coh_head", "coh_len", "hol_age"):
             arrays[key] = np.zeros_like(self.arrays[key])
         return FlatNet(n=self.n, pad=self.pad, Z=np.zeros_like(self.Z), arrays=arrays,
                        rows=self.rows, abandon_rows=self.abandon_rows,
@@ -103,7 +103,7 @@ class FlatNet:
                        a["hold_ptr"], a["hold_cdf"], a["ab_row"], a["ab_avail"],
                        a["ab_out_ptr"], a["ab_out_row"], a["ab_out_coef"], a["ab_ptr"],
                        a["ab_surv"], a["coh_amt"], a["coh_step"], a["coh_head"], a["coh_len"],
-                       a["waiting"], a["hol_age"]))
+                       a["hol_age"]))
 
     def row(self, r: int) -> np.ndarray:
         return self.Z[r, self.pad:]
@@ -391,8 +391,7 @@ def build(scenario: Scenario, dt: float, t: np.ndarray, *, sources: dict, levels
         ab_out_row=ints(ab_out_row), ab_out_coef=floats(ab_out_coef), ab_ptr=ints(ab_ptr),
         ab_surv=floats(ab_surv), coh_amt=np.zeros((n_ab, cap)),
         coh_step=np.zeros((n_ab, cap), dtype=np.int64), coh_head=np.zeros(n_ab, dtype=np.int64),
-        coh_len=np.zeros(n_ab, dtype=np.int64), waiting=np.zeros((n_ab, n)),
-        hol_age=np.zeros((n_ab, n), dtype=np.int64),
+        coh_len=np.zeros(n_ab, dtype=np.int64), hol_age=np.zeros((n_ab, n), dtype=np.int64),
     )
     return FlatNet(n=n, pad=pad, Z=Z, arrays=arrays, rows=rows, abandon_rows=abandon_rows,
                    avail_rows=avail_rows, in_rows=in_rows, hold_rows=hold_rows, delay=delay, distributed=distributed,

@@ -48,11 +48,10 @@ def _run(n, pad, Z, base,
          hold_row, hold_in, hold_kind, hold_rate, hold_first, hold_ptr, hold_cdf,
          # abandonment rows (before the transitions) and their cohorts
          ab_row, ab_avail, ab_out_ptr, ab_out_row, ab_out_coef, ab_ptr, ab_surv,
-         coh_amt, coh_step, coh_head, coh_len, waiting, hol_age):
+         coh_amt, coh_step, coh_head, coh_len, hol_age):
     """The step loop (see the module docstring). Returns the number of steps whose same-time
-    sweeps hit the cap. ``waiting[a, k]`` and ``hol_age[a, k]`` receive, for abandonment row a,
-    the waiting content after service at ``t_k`` and the age in steps of the oldest job still
-    waiting (-1 when none waits)."""
+    sweeps hit the cap. ``hol_age[a, k]`` receives, for abandonment row a, the age in steps of
+    the oldest cohort still waiting after service at ``t_k`` (-1 when none waits)."""
     unconverged = 0
     n_ab = ab_row.shape[0]
     cap = coh_amt.shape[1]
@@ -189,12 +188,6 @@ def _run(n, pad, Z, base,
             while coh_len[a] > 0 and coh_amt[a, coh_head[a] % cap] <= 0.0:
                 coh_head[a] += 1
                 coh_len[a] -= 1
-            content = 0.0
-            i = coh_head[a]
-            for _ in range(coh_len[a]):
-                content += coh_amt[a, i % cap]
-                i += 1
-            waiting[a, k] = content
             hol_age[a, k] = k - coh_step[a, coh_head[a] % cap] if coh_len[a] > 0 else -1
     return unconverged
 

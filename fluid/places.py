@@ -155,7 +155,8 @@ def cohort_service_level(scenario: Scenario, sol, place: str, within: float, sta
     n = len(sol.times)
     k = np.arange(n)
     age = sol.head_wait[place]
-    head = np.where(np.isnan(age), k + 1, k - np.rint(np.nan_to_num(age) / dt)).astype(np.int64)
+    head = np.where(np.isnan(age), k + 1,
+                    k - np.rint(np.nan_to_num(age) / dt) + 1).astype(np.int64)
     head = np.maximum.accumulate(head)
     new = np.diff(avail, prepend=0.0)
     sel = (sol.times > start) & (sol.times <= end + 1e-12 * dt) & (new > 0)
@@ -164,7 +165,8 @@ def cohort_service_level(scenario: Scenario, sol, place: str, within: float, sta
     j = k[sel]
     served_at = np.searchsorted(head, j, side="right")  # first step whose head is past j
     served_at = np.minimum(served_at, n)
-    waits = (served_at - j) * dt
+    # served at its own step: no wait; later: half a step more (it became available mid-step)
+    waits = np.where(served_at > j, (served_at - j + 0.5) * dt, 0.0)
     patience = scenario.places[place].patience
     survive = np.array([1.0 - patience.cdf(w) if w > 0 else 1.0 for w in waits])
     ok = (waits <= within * (1 + 1e-9) + 1e-12) & (served_at < n)
