@@ -79,8 +79,8 @@ def stop_workers(pool: cf.ProcessPoolExecutor) -> None:
             alive.pop(s)
     for p in alive.values():
         p.kill()
-    for p in processes:  # reap them, so that none is left a zombie or reported alive
-        p.join(timeout=1.0)
+    for p in processes:  # reap them, so that none is left a zombie or reported alive (SIGKILL
+        p.join(timeout=10.0)  # cannot be refused; the wait only covers a loaded machine)
 
 
 @contextmanager
