@@ -39,3 +39,8 @@ def test_a_simulation_run_imports_none_of_them():
             "s = fluid.load_scenario('configs/single-station.yaml')\n"
             "desim.run_replication(s, 0, horizon=50.0, warmup=5.0, seed=1)")
     assert _imported(code) == "[]"
+
+
+def test_the_command_line_starts_without_them():
+    # what every `fluidgap` command pays before it does anything (`--help`, `inspect`)
+    assert _imported("import compare.cli, compare.cli.handlers, compare.cli.destinations") == "[]"

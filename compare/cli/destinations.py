@@ -25,7 +25,7 @@ from typing import Iterable
 
 from desim.run_folder import TEMP_PREFIX
 
-from ..present.html import report_folder_problem
+from ..present.swap import report_folder_problem
 from .outcome import InputError
 
 __all__ = ["DESTINATIONS", "check_destination", "check_destinations", "check_inputs_kept",

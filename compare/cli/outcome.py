@@ -9,8 +9,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any, Callable
 
-from ..present.html import ReportFolderError
-from ..present.swap import replace_file
+from ..present.swap import ReportFolderError, replace_file
 from ..present.text import CAUTION
 
 __all__ = ["Outcome", "InputError", "finish"]

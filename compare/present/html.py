@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 
-from .swap import replace_folder
+from .swap import ReportFolderError, replace_folder, report_folder_problem  # noqa: F401
 from .tables import fmt
 
 __all__ = ["ReportFiles", "ReportFolderError", "write_report", "report_folder_problem",
@@ -34,14 +34,7 @@ __all__ = ["ReportFiles", "ReportFolderError", "write_report", "report_folder_pr
 #: Resolution of the embedded figures (dots per inch).
 DPI = 110
 _NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]*")
-#: What a report folder holds: its page, its JSON, tables and figures, and the temporary files
-#: that an earlier version of the writer could leave behind when killed.
-_REPORT_FILE = re.compile(r"report\.html|result\.json|[A-Za-z0-9][A-Za-z0-9_.-]*\.(csv|png)"
-                          r"|\..+\.tmp")
 
-
-class ReportFolderError(ValueError):
-    """The destination of a report is not a folder that may be replaced by one."""
 
 _CSS = """
 body { font-family: system-ui, -apple-system, "Segoe UI", Helvetica, Arial, sans-serif;
@@ -203,37 +196,6 @@ def _check_names(kind: str, names) -> None:
 
 
 # --- writing --------------------------------------------------------------------------------------
-
-
-def report_folder_problem(directory: str | os.PathLike) -> str | None:
-    """Why ``directory`` cannot receive a report (it is replaced whole), or None: it is missing,
-    empty, or holds a report (``report.html`` or ``result.json`` with tables and figures
-    only). Anything else (a file, a link to nothing, a folder with other files) is kept out of
-    harm's way."""
-    path = Path(directory)
-    if path.is_symlink() and not path.exists():
-        return f"is a symbolic link to nothing ({os.readlink(path)})"
-    if not path.exists():
-        return None
-    if not path.is_dir():
-        return "is a file, not a folder"
-    try:
-        entries = list(path.iterdir())
-    except OSError as exc:
-        return f"cannot be read ({exc.strerror})"
-    if not entries:
-        return None
-    foreign = sorted(p.name for p in entries
-                     if not (_REPORT_FILE.fullmatch(p.name) and p.is_file()
-                             and not p.is_symlink()))
-    if foreign:
-        shown = ", ".join(foreign[:3]) + (", ..." if len(foreign) > 3 else "")
-        return (f"holds files that are not part of a fluidgap report ({shown}) and would be "
-                "lost: use a new or empty folder")
-    if not any(p.name in ("report.html", "result.json") for p in entries):
-        return ("holds files but no report.html or result.json: not a fluidgap report, and "
-                "they would be lost: use a new or empty folder")
-    return None
 
 
 def write_report(directory: str | os.PathLike, *, title: str, summary_lines: list[str],

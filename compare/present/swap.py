@@ -225,3 +225,42 @@ def replace_file(destination: str | os.PathLike, data: bytes) -> Path:
         raise
     _fsync_dir(destination.parent)
     return destination
+
+
+_REPORT_FILE = re.compile(r"report\.html|result\.json|[A-Za-z0-9][A-Za-z0-9_.-]*\.(csv|png)"
+                          r"|\..+\.tmp")
+
+
+def report_folder_problem(directory: str | os.PathLike) -> str | None:
+    """Why ``directory`` cannot receive a report (it is replaced whole), or None: it is missing,
+    empty, or holds a report (``report.html`` or ``result.json`` with tables and figures
+    only). Anything else (a file, a link to nothing, a folder with other files) is kept out of
+    harm's way."""
+    path = Path(directory)
+    if path.is_symlink() and not path.exists():
+        return f"is a symbolic link to nothing ({os.readlink(path)})"
+    if not path.exists():
+        return None
+    if not path.is_dir():
+        return "is a file, not a folder"
+    try:
+        entries = list(path.iterdir())
+    except OSError as exc:
+        return f"cannot be read ({exc.strerror})"
+    if not entries:
+        return None
+    foreign = sorted(p.name for p in entries
+                     if not (_REPORT_FILE.fullmatch(p.name) and p.is_file()
+                             and not p.is_symlink()))
+    if foreign:
+        shown = ", ".join(foreign[:3]) + (", ..." if len(foreign) > 3 else "")
+        return (f"holds files that are not part of a fluidgap report ({shown}) and would be "
+                "lost: use a new or empty folder")
+    if not any(p.name in ("report.html", "result.json") for p in entries):
+        return ("holds files but no report.html or result.json: not a fluidgap report, and "
+                "they would be lost: use a new or empty folder")
+    return None
+
+
+class ReportFolderError(ValueError):
+    """The destination of a report is not a folder that may be replaced by one."""
