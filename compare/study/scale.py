@@ -12,7 +12,8 @@ Gaps measured per factor (rates per the scenario's time unit):
 * ``throughput_shortfall`` = (fluid − simulated) / fluid total output rate (the transitions
   that end jobs): the relative amount by which the fluid model overstates the output;
 * ``abandonment_gap`` = simulated − fluid overall abandonment (scenarios with patience), the
-  fluid figure from Whitt's (2006) fluid model per place (:mod:`compare.gaps`);
+  fluid figure from the fluid answer's waiting places (:attr:`fluid.analysis.FluidResult.places`:
+  the fluid model with abandonment, in steady state or over the window of a time-varying net);
 * ``max_transition_gap`` = max over transitions with a positive fluid rate of
   |simulated − fluid| / fluid.
 
