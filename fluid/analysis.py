@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from .counters import MAX_POINTS, CounterSolution, integrate_counters
-from .lp import throughput_lp
+from .lp import lp_bottlenecks
 from .offered import offered_rates, pool_loads
 from .scenario import Scenario
 from .structure import (bottlenecks, counter_output_level, lp_applies, output_transitions,
@@ -138,15 +138,9 @@ def _clean(d: dict[str, float]) -> dict[str, float | None]:
 
 
 def _lp_answer(scenario: Scenario):
-    sol = throughput_lp(scenario)
-    ending = output_transitions(scenario)
-    base = sum(sol.rates[q] for q in ending)
-
-    def with_one_more(pool: str) -> float:
-        more = throughput_lp(scenario, staff={pool: scenario.pools[pool].staff + 1})
-        return sum(more.rates[q] for q in ending)
-
-    return sol, base, bottlenecks(scenario.pools, base, with_one_more, "lp")
+    # one LP; its marking duals settle most pools, a one-agent LP the rest (fluid.lp)
+    found = lp_bottlenecks(scenario)
+    return found.solution, found.output, found.limiting
 
 
 def _window(scenario: Scenario, sol: CounterSolution) -> tuple[float, float]:
