@@ -3,8 +3,9 @@
 :func:`throughput` picks the method: the throughput LP (:mod:`fluid.lp`) when it applies
 (:func:`fluid.structure.lp_applies`: no priorities, every source Poisson, no schedule, every job
 can end); otherwise the counter equations
-integrated on a grid (:mod:`fluid.counters`). With the LP the counters are also run, on a coarser
-budget, as a cross-check (``cross_check``: the largest relative difference of a transition rate).
+integrated on a grid (:mod:`fluid.counters`). With the LP the counters can also be run, on a
+coarser budget, as a cross-check when asked (``cross_check=True``: the largest relative difference
+of a transition rate).
 
 The fluid model of §4.1 ignores patience: nobody abandons, and above capacity queues grow. Whitt's
 fluid model of abandonment (Whitt 2006) is applied later by ``compare``.
@@ -23,7 +24,7 @@ import numpy as np
 
 from .counters import (COUNTERS, MAX_POINTS, WITH_ABANDONMENT, CounterSolution,
                        integrate_counters, one_more_agent_levels)
-from .lp import throughput_lp
+from .lp import lp_bottlenecks
 from .offered import offered_rates, pool_loads
 from .places import place_figures
 from .scenario import Scenario
@@ -48,7 +49,7 @@ class FluidResult:
     rates (``offered_rates``: every pool unlimited; mean arrival rates for profiles) divided by its
     staff (mean staff over the horizon for schedules); ``inf`` when a pool with no staff is
     offered work, ``nan`` for a pool on no conservation invariant; ``cross_check``: with the LP,
-    the largest relative difference between LP and counter rates (None otherwise);
+    when asked for, the largest relative difference between LP and counter rates (None otherwise);
     ``rounding``: worst relative rounding of a holding time on the counters' grid (None when no
     counters ran); ``notes``: caveats (e.g. patience ignored).
 
@@ -146,15 +147,9 @@ def _clean(d: dict[str, float]) -> dict[str, float | None]:
 
 
 def _lp_answer(scenario: Scenario):
-    sol = throughput_lp(scenario)
-    ending = output_transitions(scenario)
-    base = sum(sol.rates[q] for q in ending)
-
-    def with_one_more(pool: str) -> float:
-        more = throughput_lp(scenario, staff={pool: scenario.pools[pool].staff + 1})
-        return sum(more.rates[q] for q in ending)
-
-    return sol, base, bottlenecks(scenario.pools, base, with_one_more, "lp")
+    # one LP; its marking duals settle most pools, a one-agent LP the rest (fluid.lp)
+    found = lp_bottlenecks(scenario)
+    return found.solution, found.output, found.limiting
 
 
 def _window(scenario: Scenario, sol: CounterSolution) -> tuple[float, float]:
@@ -167,7 +162,7 @@ def throughput(
     method: str = "auto",
     dt: float | None = None,
     horizon: float | None = None,
-    cross_check: bool = True,
+    cross_check: bool = False,
     abandonment: bool = True,
 ) -> FluidResult:
     """Fluid throughput, bottlenecks and loads of ``scenario`` (rates per its time unit).
@@ -177,7 +172,9 @@ def throughput(
     ``horizon`` set the counters' grid (defaults: :func:`fluid.counters.choose_step`,
     :func:`fluid.counters.default_horizon`). ``cross_check``: with the LP, also run the counters
     (at most 20 000 grid points unless a grid is given) and report the largest relative rate
-    difference. ``abandonment``: waiting places with patience lose content as their patience
+    difference (off by default: the LP is re-checked on its own, and the counters cost more
+    than the LP on large nets).
+    ``abandonment``: waiting places with patience lose content as their patience
     says (the fluid model with abandonment, :data:`fluid.flat_net.WITH_ABANDONMENT`); False
     gives design.md §4.1 as written (patience ignored, queues grow above capacity).
 

@@ -12,7 +12,9 @@ Martínez and Silva (1982, "A simple and fast algorithm to obtain all invariants
 Petri net"): columns of ``C`` are eliminated one at a time by non-negative combinations of pairs of
 rows, and after each step only rows of minimal support are kept (the extreme rays of the cone
 ``{y ≥ 0 : yᵀC = 0}`` are exactly its minimal-support elements). Arithmetic is on Python
-integers, so the weights are exact.
+integers, so the weights are exact. Rows are sparse, the per-column counts that choose the next
+column are kept up to date as rows come and go, and supports are looked up by node, so a step
+costs what it changes rather than a scan of every row (and every pair of rows).
 """
 
 from __future__ import annotations
@@ -74,54 +76,144 @@ def _support(y: list[int]) -> int:
     return mask
 
 
-def _keep_minimal(rows: list[tuple[list[int], list[int], int]]) -> list:
-    """Drop rows whose support contains another row's support (and duplicates of a support)."""
-    rows = sorted(rows, key=lambda r: bin(r[2]).count("1"))
-    kept: list = []
-    for row in rows:
-        mask = row[2]
-        if any((k[2] & mask) == k[2] for k in kept):
-            continue
-        kept.append(row)
-    return kept
+def _nodes(mask: int):
+    """The single-bit masks of the nodes in ``mask``, lowest first."""
+    while mask:
+        low = mask & -mask
+        yield low
+        mask ^= low
+
+
+class _SupportIndex:
+    """Distinct supports (bit masks) indexed by their lowest node: a support inside ``mask`` has
+    its lowest node in ``mask``, so a subset query looks only at the buckets of ``mask``'s nodes
+    instead of comparing ``mask`` with every support."""
+
+    def __init__(self, masks=()):
+        self.buckets: dict[int, set[int]] = {}
+        for m in masks:
+            self.add(m)
+
+    def add(self, mask: int) -> None:
+        self.buckets.setdefault(mask & -mask, set()).add(mask)
+
+    def remove(self, mask: int) -> None:
+        self.buckets[mask & -mask].remove(mask)
+
+    def has_subset(self, mask: int, *, proper: bool = False) -> bool:
+        """True when some indexed support lies inside ``mask`` (``proper``: other than
+        ``mask`` itself)."""
+        buckets = self.buckets
+        for low in _nodes(mask):
+            for m in buckets.get(low, ()):
+                if m & mask == m and not (proper and m == mask):
+                    return True
+        return False
+
+
+def _combine(j: int, pos_row, neg_row):
+    """The non-negative combination of a row with a positive and a row with a negative entry in
+    column ``j`` that zeroes it, divided by the gcd of its entries. Rows are ``(c, y, mask)``:
+    ``c`` and ``y`` map column or node -> non-zero integer, ``mask`` is the support of ``y``."""
+    cp, yp, mp = pos_row
+    cn, yn, mn = neg_row
+    fp, fn = -cn[j], cp[j]
+    c = {}
+    for k in cp.keys() | cn.keys():
+        if k != j:
+            v = fp * cp.get(k, 0) + fn * cn.get(k, 0)
+            if v:
+                c[k] = v
+    # both y parts are >= 0 and fp, fn > 0: no entry of the union cancels
+    y = {k: fp * yp.get(k, 0) + fn * yn.get(k, 0) for k in yp.keys() | yn.keys()}
+    g = math.gcd(*c.values(), *y.values())
+    if g > 1:
+        c = {k: v // g for k, v in c.items()}
+        y = {k: v // g for k, v in y.items()}
+    return c, y, mp | mn
 
 
 def _farkas(c: np.ndarray, max_rows: int) -> list[list[int]] | None:
-    """Minimal-support semiflows of ``c`` (rows × columns), or None when the cap is exceeded."""
-    n_rows, n_cols = c.shape
-    # each row: (remaining columns of C as ints, the y part, support mask of y)
-    rows = []
-    for i in range(n_rows):
-        y = [0] * n_rows
-        y[i] = 1
-        rows.append(([int(v) for v in c[i]], y, 1 << i))
-    remaining = list(range(n_cols))
-    while remaining:
-        # eliminate first the column that creates the fewest new rows (Martínez–Silva heuristic)
-        def cost(j: int) -> int:
-            pos = sum(1 for r in rows if r[0][j] > 0)
-            neg = sum(1 for r in rows if r[0][j] < 0)
-            return pos * neg - pos - neg
+    """Minimal-support semiflows of ``c`` (rows × columns), or None when the cap is exceeded.
 
-        j = min(remaining, key=cost)
-        remaining.remove(j)
-        zero = [r for r in rows if r[0][j] == 0]
-        pos = [r for r in rows if r[0][j] > 0]
-        neg = [r for r in rows if r[0][j] < 0]
-        new = list(zero)
-        for cp, yp, mp in pos:
-            for cn, yn, mn in neg:
-                mask = mp | mn
-                # a combination whose support contains a zero-row's support is never minimal
-                if any((z[2] & mask) == z[2] for z in zero):
+    Each step eliminates one column (the one that creates the fewest new rows, the first among
+    equals: the Martínez–Silva heuristic). The rows whose entry there is zero stay; each pair of a
+    positive and a negative row gives a combination unless its support contains a staying row's
+    support; of the combinations, those of minimal support stay (the first of equal supports).
+    The rows are kept in order of support size, then age: the order the semiflows come out in.
+
+    Rows are sparse and indexed: per column, which rows are positive or negative there (so a
+    step reads only the rows it changes, and the counts that choose the next column are at
+    hand); supports by node (:class:`_SupportIndex`). A staying row never loses its place to a
+    combination: a combination's support contains the support of each of its two parents, and
+    the rows before the step had minimal, distinct supports."""
+    n_rows, n_cols = c.shape
+    rows: dict[int, tuple] = {}  # age -> (remaining columns of C, the y part, support of y)
+    col_pos: list[set[int]] = [set() for _ in range(n_cols)]
+    col_neg: list[set[int]] = [set() for _ in range(n_cols)]
+    n_pos = np.zeros(n_cols, dtype=np.int64)
+    n_neg = np.zeros(n_cols, dtype=np.int64)
+    supports = _SupportIndex()
+
+    def enter(age: int, row) -> None:
+        rows[age] = row
+        for k, v in row[0].items():
+            if v > 0:
+                col_pos[k].add(age)
+                n_pos[k] += 1
+            else:
+                col_neg[k].add(age)
+                n_neg[k] += 1
+        supports.add(row[2])
+
+    def leave(age: int):
+        row = rows.pop(age)
+        for k, v in row[0].items():
+            if v > 0:
+                col_pos[k].discard(age)
+                n_pos[k] -= 1
+            else:
+                col_neg[k].discard(age)
+                n_neg[k] -= 1
+        supports.remove(row[2])
+        return row
+
+    def in_order(ages) -> list[int]:
+        return sorted(ages, key=lambda a: (rows[a][2].bit_count(), a))
+
+    for i in range(n_rows):
+        enter(i, ({int(j): int(c[i, j]) for j in np.flatnonzero(c[i])}, {i: 1}, 1 << i))
+    age = n_rows
+    done = np.zeros(n_cols, dtype=bool)
+    for _ in range(n_cols):
+        cost = n_pos * n_neg - n_pos - n_neg
+        cost[done] = np.iinfo(np.int64).max
+        j = int(np.argmin(cost))  # the first of the cheapest
+        done[j] = True
+        if not n_pos[j] and not n_neg[j]:
+            continue  # every row is zero there: nothing changes
+        pos = [leave(a) for a in in_order(col_pos[j])]
+        neg = [leave(a) for a in in_order(col_neg[j])]
+        # the support index now holds exactly the rows that stay
+        staying = len(rows)
+        combos = []
+        for p in pos:
+            for n in neg:
+                # a combination whose support contains a staying row's support is never minimal
+                if supports.has_subset(p[2] | n[2]):
                     continue
-                fp, fn = -cn[j], cp[j]
-                merged = _normalise([fp * a + fn * b for a, b in zip(cp + yp, cn + yn)])
-                new.append((merged[: len(cp)], merged[len(cp):], mask))
-                if len(new) > max_rows:
+                combos.append(_combine(j, p, n))
+                if staying + len(combos) > max_rows:
                     return None
-        rows = _keep_minimal(new)
-    return [r[1] for r in rows]
+        first: dict[int, tuple] = {}
+        for row in combos:
+            first.setdefault(row[2], row)
+        among = _SupportIndex(first)
+        for mask, row in first.items():
+            if not among.has_subset(mask, proper=True):
+                enter(age, row)
+                age += 1
+    return [[rows[a][1].get(i, 0) for i in range(n_rows)] for a in in_order(rows)]
 
 
 def _lp_semiflow(c: np.ndarray, node: int, penalty: np.ndarray | None = None) -> np.ndarray | None:

@@ -44,11 +44,12 @@ def offered_rates(scenario: Scenario, horizon: float | None = None) -> tuple[dic
     for src in scenario.sources.values():
         lam[src.into] += src.arrivals.mean_rate(h)
     # x = λ + Pᵀx over the places whose jobs can end (P is then substochastic and I − Pᵀ regular)
-    pt = np.zeros((n, n))
+    pt: dict[tuple[int, int], float] = {}
     for a, b, q, w in moves:
         if a in idx and b in idx:
-            pt[idx[b], idx[a]] += w
-    x = np.linalg.solve(np.eye(n) - pt, np.array([lam[p] for p in open_places])) if n else []
+            key = (idx[b], idx[a])
+            pt[key] = pt.get(key, 0.0) + w
+    x = _solve_flow_balance(n, pt, np.array([lam[p] for p in open_places])) if n else []
     inflow = {p: float(x[idx[p]]) for p in open_places}
     # the rest: reached (inflow > 0) means jobs pile up and circulate without bound
     reached = {p for p in places if p not in idx and lam[p] > 0}
@@ -68,6 +69,25 @@ def offered_rates(scenario: Scenario, horizon: float | None = None) -> tuple[dic
     for a, b, q, w in moves:
         rates[q] = 0.0 if w == 0 or inflow[a] == 0 else w * inflow[a]
     return rates, {p: inflow[p] for p in places}
+
+
+def _solve_flow_balance(n: int, pt: dict[tuple[int, int], float], lam: np.ndarray) -> np.ndarray:
+    """Solve ``(I − Pᵀ) x = λ`` with ``Pᵀ`` given by its non-zero entries ``{(row, col): w}``:
+    a sparse LU (SuperLU), as each place feeds only a few others, instead of a dense n × n
+    matrix."""
+    from scipy.sparse import csc_array
+    from scipy.sparse.linalg import spsolve
+
+    rows, cols, vals = list(range(n)), list(range(n)), [1.0] * n
+    for (i, j), w in pt.items():
+        if i == j:
+            vals[i] = 1.0 - w
+        else:
+            rows.append(i)
+            cols.append(j)
+            vals.append(-w)
+    m = csc_array((vals, (rows, cols)), shape=(n, n))
+    return np.atleast_1d(spsolve(m, lam, use_umfpack=False))
 
 
 def pool_work(scenario: Scenario, inflow: Mapping[str, float]) -> dict[str, float]:

@@ -44,7 +44,7 @@ from typing import Iterable, Mapping, Sequence
 
 import numpy as np
 
-from .lp import linprog, throughput_lp
+from .lp import ThroughputModel, linprog
 from .offered import offered_rates, offered_work
 from .phase_grid import grid_diagram
 from .phase_results import INFLOW, GridPoint, PhaseDiagram, Piece
@@ -149,15 +149,17 @@ class _Oracle:
     def __init__(self, scenario: Scenario, axes, of, scale: float):
         self.scenario = scenario
         self.axes = axes
-        self.weights = {q: (1.0 if q in of else 0.0) for q in scenario.transitions}
-        self.weights |= {s: 0.0 for s in scenario.sources}
+        weights = {q: (1.0 if q in of else 0.0) for q in scenario.transitions}
+        weights |= {s: 0.0 for s in scenario.sources}
+        # built once: the staff only changes the LP's right-hand sides
+        self.model = ThroughputModel(scenario, weights=weights)
         self.base = {p: float(pool.staff) for p, pool in scenario.pools.items()}
         self.scale = scale
         self.cache: dict = {}
         self.solves = 0
 
     def value_at(self, staff: Mapping[str, float]) -> tuple[float, dict[str, float]]:
-        sol = throughput_lp(self.scenario, weights=self.weights, staff=staff)
+        sol = self.model.solve(staff)
         self.solves += 1
         duals = {p: (0.0 if abs(y) <= 1e-12 * max(1.0, self.scale) else float(y))
                  for p, y in sol.marking_duals.items()}

@@ -35,7 +35,7 @@ def fluid(args) -> Outcome:
     s = load(args)
     if args.dt is not None and args.dt <= 0:
         raise InputError(f"fluidgap fluid: --dt must be > 0 (got {args.dt:g})")
-    result = throughput(s, method=args.method, dt=args.dt)
+    result = throughput(s, method=args.method, dt=args.dt, cross_check=args.cross_check)
     return finish(args, render.fluid_text(s, result), result.to_dict())
 
 

@@ -65,6 +65,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="lp: the throughput LP (no priorities, constant rates); counters: "
                    "integrate the counter equations (default: auto)")
     p.add_argument("--dt", type=float, help="time step of the counter integration")
+    p.add_argument("--cross-check", action="store_true", dest="cross_check",
+                   help="with the LP, also integrate the counter equations and report the largest "
+                   "relative difference of a rate (JSON key cross_check; null when not run)")
     p.set_defaults(handler=handlers.fluid)
 
     p = sub.add_parser("simulate", help="stochastic simulation with confidence intervals")

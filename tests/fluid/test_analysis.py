@@ -25,7 +25,7 @@ CONFIGS = sorted((pathlib.Path(__file__).resolve().parents[2] / "configs").glob(
 def test_single_pool(rate, bottlenecks):
     # By hand: load = λh/N = 2λ/5; the pool limits only when λ > N/h = 2.5 (at λ = 2.5 one more
     # agent does not raise the output)
-    r = throughput(nets.load(nets.single_pool(rate, 5, 2.0)))
+    r = throughput(nets.load(nets.single_pool(rate, 5, 2.0)), cross_check=True)
     assert r.method == "lp"
     assert r.rates["answer"] == pytest.approx(min(rate, 2.5), abs=EXACT)
     assert r.output_rate == pytest.approx(min(rate, 2.5), abs=EXACT)
@@ -34,6 +34,16 @@ def test_single_pool(rate, bottlenecks):
     assert r.phase == ("agents" if bottlenecks else "inflow")
     assert r.cross_check is not None and r.cross_check < 1e-9
     assert r.rounding == 0.0
+
+
+def test_the_counter_cross_check_runs_only_when_asked():
+    s = nets.load(nets.single_pool(3.0, 5, 2.0))
+    r = throughput(s)
+    assert r.method == "lp" and r.counters is None
+    assert (r.cross_check, r.rounding, r.dt, r.horizon) == (None, None, None, None)
+    asked = throughput(s, cross_check=True)
+    assert asked.counters is not None and asked.cross_check < 1e-9
+    assert asked.rates == r.rates and asked.bottlenecks == r.bottlenecks
 
 
 def test_cold_transfer_bottleneck_and_loads():
@@ -157,7 +167,7 @@ def test_nets_whose_jobs_cannot_end_use_the_counters():
 
 @pytest.mark.parametrize("path", CONFIGS, ids=[p.stem for p in CONFIGS])
 def test_every_config_gives_an_answer(path):
-    r = throughput(load_scenario(path))
+    r = throughput(load_scenario(path), cross_check=True)
     assert r.method in ("lp", "counters")
     assert all(math.isfinite(v) and v >= 0 for v in r.rates.values())
     doc = json.loads(r.to_json())

@@ -49,7 +49,7 @@ def test_demo_with_too_few_front_agents_is_capped_by_the_front_desk():
 
 
 def test_single_station_lp_agrees_with_counters():
-    r = throughput(load_scenario(ROOT / "configs" / "single-station.yaml"))
+    r = throughput(load_scenario(ROOT / "configs" / "single-station.yaml"), cross_check=True)
     assert r.method == "lp"
     assert r.rates["answer"] == pytest.approx(2.0)  # below capacity 12 / 5 = 2.4
     assert r.cross_check is not None and r.cross_check < 1e-6

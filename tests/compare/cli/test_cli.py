@@ -48,6 +48,17 @@ def test_fluid_json_keys_on_every_config(capsys, config):
     )
 
 
+def test_fluid_cross_check_only_when_asked(capsys):
+    # single-station is an LP net: the counters run only with --cross-check (the JSON key stays,
+    # null when not run); below capacity both give 2 per minute exactly (holds on the grid)
+    station = str(ROOT / "configs" / "single-station.yaml")
+    doc = json.loads(main_json(capsys, "fluid", station))
+    assert doc["method"] == "lp" and doc["cross_check"] is None and doc["dt"] is None
+    doc = json.loads(main_json(capsys, "fluid", station, "--cross-check"))
+    assert doc["cross_check"] is not None and doc["cross_check"] < 1e-9
+    assert doc["rounding"] == 0.0
+
+
 def main_json(capsys, *argv) -> str:
     main([*argv, "--json"])
     return capsys.readouterr().out
