@@ -164,6 +164,7 @@ def throughput(
     horizon: float | None = None,
     cross_check: bool = False,
     abandonment: bool = True,
+    window: tuple[float, float] | None = None,
 ) -> FluidResult:
     """Fluid throughput, bottlenecks and loads of ``scenario`` (rates per its time unit).
 
@@ -183,6 +184,10 @@ def throughput(
     abandoned jobs come back (``abandon_to``) "auto" integrates the dynamics instead. The
     figures of every waiting place are in ``places`` (:class:`fluid.places.FluidPlace`); the
     fluid model used is named in ``model``.
+
+    ``window``: the statistics window ``(start, end)`` (time units) over which a time-varying
+    net's figures are means, as a simulation measures them (default: the scenario's ``run``
+    warm-up and horizon); its end is also the horizon of the mean arrival rates and staff.
     """
     redials = any(p.abandon_to is not None for p in scenario.places.values())
     if method == "auto":
@@ -197,6 +202,12 @@ def throughput(
     elif scenario.has_patience and method == "lp":
         notes.append("waiting places with patience: each settles as in Whitt (2006) at the "
                      "LP's rates (the fluid model with abandonment in steady state)")
+    if window is not None and scenario.has_time_variation:  # constant nets have no window
+        window = (float(window[0]), float(window[1]))
+        if horizon is None:
+            horizon = window[1]
+    else:
+        window = None
     load_horizon = horizon if horizon is not None else scenario.run.horizon
     load, staff = pool_loads(scenario, load_horizon)
     common = dict(
@@ -206,7 +217,7 @@ def throughput(
     if method == "lp":
         return _by_lp(scenario, dt, horizon, cross_check, notes, common)
     model = WITH_ABANDONMENT if abandonment and scenario.has_patience else COUNTERS
-    return _by_counters(scenario, dt, horizon, notes, common, model)
+    return _by_counters(scenario, dt, horizon, notes, common, model, window)
 
 
 def _by_lp(scenario, dt, horizon, cross_check, notes, common) -> FluidResult:
@@ -256,12 +267,19 @@ def _bottleneck_candidates(scenario, sol, ending, window, offered) -> list[str]:
     return out
 
 
-def _by_counters(scenario, dt, horizon, notes, common, model=COUNTERS) -> FluidResult:
+def _by_counters(scenario, dt, horizon, notes, common, model=COUNTERS,
+                 given_window=None) -> FluidResult:
     constant = not scenario.has_time_variation
     if horizon is None and not constant:
         horizon = scenario.run.horizon
     sol = integrate_counters(scenario, dt=dt, horizon=horizon, model=model)
-    window = None if constant else _window(scenario, sol)
+    if constant:
+        window = None
+    elif given_window is not None:
+        end = min(given_window[1], sol.horizon)
+        window = (given_window[0] if given_window[0] < end else 0.0, end)
+    else:
+        window = _window(scenario, sol)
     if window is None:
         rates, srates = sol.rates, sol.source_rates
     else:

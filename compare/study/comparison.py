@@ -18,24 +18,13 @@ import pandas as pd
 
 from desim import SimulationResult, SimulationSettings, replicate, resolve_settings
 from fluid.analysis import FluidResult, throughput
-from fluid.loading import with_changes
 from fluid.scenario import Scenario
 
 from .flags import Flag, find_flags
 from .gaps import Gaps, gap_tables
 from .transient import default_interval, transient_table
 
-__all__ = ["Comparison", "compare", "with_window"]
-
-
-def with_window(scenario: Scenario, settings: SimulationSettings) -> Scenario:
-    """``scenario`` with its ``run`` section set to ``settings``, so that the fluid model reads
-    time-varying rates over the same window [warmup, horizon] as the simulation."""
-    run = scenario.run
-    if (run.horizon, run.warmup, run.replications, run.seed) == (
-            settings.horizon, settings.warmup, settings.replications, settings.seed):
-        return scenario
-    return with_changes(scenario, {"run": settings.to_json()})
+__all__ = ["Comparison", "compare"]
 
 
 @dataclass(frozen=True)
@@ -110,19 +99,18 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
                                 warmup=warmup, seed=seed, workers=workers, executor=executor,
                                 interval=interval, max_jobs=max_jobs, out=out,
                                 resume=resume or None)
-    windowed = with_window(scenario, settings)
     notes: list[str] = []
     interval = settings.interval
     if interval is None and scenario.has_time_variation:
         interval = default_interval(scenario, settings.horizon)
         settings = settings.with_changes(interval=interval)
-    fluid = throughput(windowed)
-    sim = replicate(windowed, settings=settings, progress=progress, record_waits=record_waits)
-    gaps = gap_tables(windowed, fluid, sim)
-    flags = find_flags(windowed, fluid, sim, gaps)
+    fluid = throughput(scenario, window=settings.window)
+    sim = replicate(scenario, settings=settings, progress=progress, record_waits=record_waits)
+    gaps = gap_tables(scenario, fluid, sim)
+    flags = find_flags(scenario, fluid, sim, gaps)
     transient = None
     if sim.intervals is not None:
-        transient = transient_table(windowed, sim.intervals, fluid.counters, settings.horizon)
+        transient = transient_table(scenario, sim.intervals, fluid.counters, settings.horizon)
     notes.append(f"fluid model compared with: {fluid.model}")
     if scenario.has_time_variation:
         notes.append("time-varying scenario: fluid figures are means over the window "
@@ -134,5 +122,5 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
     return Comparison(
         scenario_name=scenario.name, time_unit=scenario.time_unit, settings=settings,
         fluid=fluid, simulation=sim, gaps=gaps, flags=flags, transient=transient,
-        interval=interval, notes=tuple(notes), scenario=windowed,
+        interval=interval, notes=tuple(notes), scenario=scenario,
     )

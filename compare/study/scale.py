@@ -42,7 +42,6 @@ from fluid.errors import FieldError, ScenarioError
 from fluid.loading import with_changes
 from fluid.scenario import Scenario
 
-from .comparison import with_window
 from .gaps import fluid_abandonment, fluid_places, simulated_output
 from .sweep import Sweep
 
@@ -223,14 +222,14 @@ def scale_study(scenario: Scenario, factors: Sequence[float] = (1, 2, 4, 8, 16),
     settings = resolve_settings(scenario.run, settings, reps=reps, horizon=horizon,
                                 warmup=warmup, seed=seed, workers=workers, executor=executor,
                                 max_jobs=max_jobs, out=out, resume=resume or None)
-    base = with_window(scenario, settings)
+    base = scenario
     rows, notes = [], []
     with_patience = scenario.has_patience
     with Sweep(settings, progress) as sweep:
         for k in factors:
             scaled, rounding = scale_scenario(base, k)
             notes += rounding
-            fluid = throughput(scaled)
+            fluid = throughput(scaled, window=settings.window)
             sim = sweep.run(scaled, f"factor-{k:g}")
             rows.append(_scale_row(k, scaled, fluid, sim, with_patience))
             if sim.unstable_replications:
