@@ -29,6 +29,7 @@ Rates are per the scenario's time unit; staff in agents.
 
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Mapping
@@ -152,18 +153,27 @@ def plan_view(scenario: Scenario) -> Scenario:
     """The net as the fluid plan reads it, for the re-check only: every source at its mean rate
     over the run horizon, and a job place's priority turned into a route sending every job to its
     highest-priority output (pools keep their priorities). Built with
-    :func:`dataclasses.replace` and not validated again, so it is not meant to be simulated or
-    saved."""
+    :func:`dataclasses.replace` and not validated again, so it is not meant to be simulated; its
+    stored document says what it is (so that its fingerprint is not the original's)."""
     h = scenario.run.horizon
-    sources = {n: replace(s, arrivals=PoissonArrivals(s.arrivals.mean_rate(h)))
-               for n, s in scenario.sources.items()}
+    doc = scenario.to_document()
+    sources = {}
+    for n, s in scenario.sources.items():
+        rate = s.arrivals.mean_rate(h)
+        sources[n] = replace(s, arrivals=PoissonArrivals(rate))
+        doc.setdefault("sources", {})[n] = {"rate": rate, "into": s.into}
     places = {}
     for n, p in scenario.places.items():
         if p.priority:
             route = FrozenMap({q: unlimited_share(scenario, n, q) for q in p.priority})
             p = replace(p, priority=(), route=route)
+            entry = dict(doc["places"][n]) if isinstance(doc["places"].get(n), dict) else {}
+            entry.pop("priority", None)
+            entry["route"] = dict(route)
+            doc["places"][n] = entry
         places[n] = p
-    return replace(scenario, sources=FrozenMap(sources), places=FrozenMap(places))
+    return replace(scenario, sources=FrozenMap(sources), places=FrozenMap(places),
+                   document=json.dumps(doc, sort_keys=True))
 
 
 # --- the mixed-integer program -------------------------------------------------------------------
