@@ -64,21 +64,6 @@ __all__ = ["Timing", "DemoTiming", "MemoryPeak", "BenchReport", "station_yaml",
 SERVERS, RATE, MEAN_HOLD = 50, 45.0, 1.0  # load 45/50 = 0.9
 SEED = 2024
 
-_STATION = """\
-name: M/M/{servers} benchmark station (invented)
-time_unit: min
-run: {{horizon: 4000, warmup: 0, replications: 1, seed: {seed}}}
-sources:
-  calls: {{rate: {rate}, into: queue}}
-pools:
-  agents: {servers}
-places:
-  queue: {{}}
-  talk: {{hold: {{dist: exponential, mean: {hold}}}}}
-transitions:
-  answer: {{in: [queue, agents], out: [talk]}}
-  close: {{in: [talk], out: [agents]}}
-"""
 
 
 @dataclass(frozen=True)
@@ -179,7 +164,11 @@ class BenchReport:
 def station_yaml(servers: int = SERVERS, rate: float = RATE, mean_hold: float = MEAN_HOLD,
                  seed: int = SEED) -> str:
     """The benchmark's M/M/c station as scenario YAML text (rate per min, hold in min)."""
-    return _STATION.format(servers=servers, rate=rate, hold=mean_hold, seed=seed)
+    from fluid.stations import station_yaml as single_station
+
+    return single_station(servers, float(rate), float(mean_hold),
+                          name=f"M/M/{servers} benchmark station (invented)", targets=False,
+                          run={"horizon": 4000, "warmup": 0, "replications": 1, "seed": seed})
 
 
 def station_scenario(servers: int = SERVERS, rate: float = RATE, mean_hold: float = MEAN_HOLD,

@@ -132,8 +132,9 @@ def _read_pid(fd: int) -> int | None:
 # --- files -------------------------------------------------------------------------------------
 
 
-def _fsync_dir(directory: Path) -> None:
-    # makes the rename itself durable; not every platform can open a directory
+def fsync_dir(directory: Path) -> None:
+    """Make the renames in ``directory`` durable (not every platform can open or sync a
+    folder: it then goes without)."""
     try:
         fd = os.open(directory, os.O_RDONLY)
     except OSError:
@@ -161,5 +162,5 @@ def write_atomic(path: str | os.PathLike, text: str) -> Path:
         with suppress(OSError):
             os.unlink(tmp)
         raise
-    _fsync_dir(path.parent)
+    fsync_dir(path.parent)
     return path

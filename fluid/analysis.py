@@ -24,12 +24,13 @@ import numpy as np
 
 from .counters import (COUNTERS, MAX_POINTS, WITH_ABANDONMENT, CounterSolution,
                        integrate_counters, one_more_agent_levels)
+from .json_values import json_number
 from .lp import lp_bottlenecks
 from .offered import offered_rates, pool_loads
 from .places import place_figures
 from .scenario import Scenario
-from .structure import (COUNTER_RISE, bottlenecks, counter_output_level, lp_applies, output_transitions,
-                        statistics_window)
+from .structure import (COUNTER_RISE, bottlenecks, counter_output_level, lp_applies,
+                        output_transitions, statistics_window)
 
 __all__ = ["FluidResult", "throughput"]
 
@@ -133,14 +134,11 @@ class FluidResult:
         return json.dumps(self.to_dict(), allow_nan=False, **kwargs)
 
 
-def _num(x: float | None) -> float | None:
-    if x is None or not math.isfinite(x):
-        return None
-    return float(x)
+_num = json_number
 
 
 def _clean(d: dict[str, float]) -> dict[str, float | None]:
-    return {k: _num(v) for k, v in d.items()}
+    return {k: json_number(v) for k, v in d.items()}
 
 
 # --- throughput ----------------------------------------------------------------------------------

@@ -28,6 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .json_values import json_number
 from .scenario import Scenario
 from .service_level import fifo_service_level, place_curves
 from .structure import inflow, outflow, waiting_places
@@ -39,11 +40,7 @@ __all__ = ["PLACE_TOLERANCE", "FluidPlace", "stationary_place", "window_place", 
 PLACE_TOLERANCE = 1e-5
 
 
-def _num(x):
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
+_num = json_number
 
 
 @dataclass(frozen=True)

@@ -38,6 +38,7 @@ import numpy as np
 
 from .counters import integrate_counters
 from .errors import SolverError
+from .json_values import json_number
 from .loading import with_changes
 from .lp import throughput_lp
 from .offered import offered_rates, offered_work
@@ -123,8 +124,7 @@ class FluidPlan:
                                            "scenario_staff"])
 
 
-def _num(x: float | None) -> float | None:
-    return None if x is None or not math.isfinite(x) else float(x)
+_num = json_number
 
 
 # --- variants read by the plan, phase diagrams and the simulated search -------------------------

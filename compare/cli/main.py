@@ -8,7 +8,6 @@ terminated (SIGTERM), one line each, worker processes ended first.
 from __future__ import annotations
 
 import json
-import math
 import os
 import signal
 import sys
@@ -18,6 +17,7 @@ from typing import Any, Sequence
 
 from desim import DaskError, StoreError
 from fluid.errors import ScenarioError
+from fluid.json_values import json_ready
 
 from .destinations import check_destinations
 from .outcome import InputError
@@ -48,21 +48,8 @@ def _on_sigterm():
 
 
 def _emit_json(doc: Any) -> None:
-    json.dump(_jsonable(doc), sys.stdout, indent=2, allow_nan=False)
+    json.dump(json_ready(doc), sys.stdout, indent=2, allow_nan=False)
     sys.stdout.write("\n")
-
-
-def _jsonable(x: Any) -> Any:
-    """JSON has no inf or nan: both become null."""
-    if isinstance(x, float) and not math.isfinite(x):
-        return None
-    if isinstance(x, dict):
-        return {str(k): _jsonable(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_jsonable(v) for v in x]
-    if hasattr(x, "item") and callable(x.item) and getattr(x, "shape", None) == ():
-        return _jsonable(x.item())
-    return x
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -14,7 +14,6 @@ import base64
 import html
 import io
 import json
-import math
 import os
 import re
 from dataclasses import dataclass, field
@@ -26,6 +25,8 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from .swap import ReportFolderError, replace_folder, report_folder_problem  # noqa: F401
+from fluid.json_values import json_ready
+
 from .tables import fmt
 
 __all__ = ["ReportFiles", "ReportFolderError", "write_report", "report_folder_problem",
@@ -75,38 +76,6 @@ class ReportFiles:
 
 
 # --- content built in memory ----------------------------------------------------------------------
-
-
-def json_ready(obj: Any) -> Any:
-    """``obj`` with inf and nan turned into None, numpy scalars and arrays into Python numbers
-    and lists, tuples into lists, DataFrames into lists of records and objects with a
-    ``to_json()`` or ``to_dict()`` returning a dict into that dict. Anything else JSON cannot hold
-    raises TypeError (from :func:`json.dumps`)."""
-    if isinstance(obj, Mapping):
-        return {str(k): json_ready(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [json_ready(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return json_ready(obj.tolist())
-    if isinstance(obj, pd.DataFrame):
-        return json_ready(obj.to_dict("records"))
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        return float(obj) if math.isfinite(obj) else None
-    if obj is None or isinstance(obj, str):
-        return obj
-    if obj is pd.NA or obj is pd.NaT:
-        return None
-    for method in ("to_json", "to_dict"):
-        f = getattr(obj, method, None)
-        if callable(f):
-            out = f()
-            if isinstance(out, Mapping):
-                return json_ready(out)
-    return obj  # json.dumps names the type it cannot encode
 
 
 def figure_png(fig: Figure, dpi: int = DPI) -> bytes:

@@ -33,6 +33,8 @@ import sys
 from pathlib import Path
 from typing import Iterable
 
+from desim.run_folder import fsync_dir as _fsync_dir
+
 __all__ = ["replace_folder", "replace_file", "clean_leftovers", "leftovers"]
 
 _SIBLING = re.compile(r"\.fluidgap-([0-9a-f]{10})-(\d+)-[0-9a-f]+\.(new|old|part)")
@@ -100,20 +102,6 @@ def _remove(path: Path) -> None:
             os.unlink(path)
         except FileNotFoundError:
             pass
-
-
-def _fsync_dir(directory: Path) -> None:
-    # makes the renames durable; a system that cannot open or sync a folder just goes without
-    try:
-        fd = os.open(directory, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)
 
 
 def _write(path: Path, data: bytes, mode: int = 0o644) -> None:

@@ -10,7 +10,6 @@ scenario's time unit.
 from __future__ import annotations
 
 import concurrent.futures as cf
-import math
 from dataclasses import dataclass, field
 from typing import Callable
 
@@ -18,6 +17,7 @@ import pandas as pd
 
 from desim import SimulationResult, SimulationSettings, replicate, resolve_settings
 from fluid.analysis import FluidResult, throughput
+from fluid.json_values import json_ready
 from fluid.scenario import Scenario
 
 from .flags import Flag, find_flags
@@ -64,9 +64,7 @@ class Comparison:
         "transient", "interval", "notes"}`` (design.md §5); nan and inf become null."""
         transient = None
         if self.transient is not None:
-            transient = [{k: (None if isinstance(v, float) and not math.isfinite(v) else v)
-                          for k, v in rec.items()}
-                         for rec in self.transient.to_dict("records")]
+            transient = json_ready(self.transient.to_dict("records"))
         return {
             "scenario": self.scenario_name,
             "time_unit": self.time_unit,

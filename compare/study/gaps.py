@@ -37,6 +37,7 @@ import pandas as pd
 
 from desim import Estimate, SimulationResult
 from fluid.analysis import FluidResult
+from fluid.json_values import json_number
 from fluid.offered import pool_work
 from fluid.places import PLACE_TOLERANCE, FluidPlace, stationary_place
 from fluid.scenario import Scenario
@@ -58,12 +59,7 @@ __all__ = [
 ROW_COLUMNS = ["fluid", "mean", "low", "high", "n", "gap", "rel_gap"]
 
 
-def num(x) -> float | None:
-    """A JSON-ready number: nan and inf become None."""
-    if x is None:
-        return None
-    x = float(x)
-    return x if math.isfinite(x) else None
+num = json_number  # a JSON-ready number: nan and inf become None
 
 
 def _gap(fluid: float, est: Estimate) -> tuple[float, float]:

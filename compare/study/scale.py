@@ -39,6 +39,7 @@ import pandas as pd
 from desim import SimulationSettings, resolve_settings
 from fluid.analysis import throughput
 from fluid.errors import FieldError, ScenarioError
+from fluid.json_values import json_ready
 from fluid.loading import with_changes
 from fluid.scenario import Scenario
 
@@ -194,8 +195,7 @@ class ScaleResult:
     def to_json(self) -> dict:
         """``{"scenario", "time_unit", "factors", "replications", "horizon", "warmup", "seed",
         "table": [row, ...], "fits": {metric: fit}, "notes"}``; nan becomes null."""
-        rows = [{k: (None if isinstance(v, float) and not math.isfinite(v) else v)
-                 for k, v in rec.items()} for rec in self.table.to_dict("records")]
+        rows = json_ready(self.table.to_dict("records"))
         return {"scenario": self.scenario_name, "time_unit": self.time_unit,
                 "factors": list(self.factors), "replications": self.replications,
                 "horizon": self.horizon, "warmup": self.warmup, "seed": self.seed,

@@ -34,6 +34,7 @@ from typing import Callable, Mapping
 import pandas as pd
 
 from desim import Estimate, SimulationSettings, resolve_settings
+from fluid.json_values import json_number
 from fluid.offered import offered_work
 from fluid.scenario import Scenario
 from fluid.staffing import FluidPlan, fluid_plan, with_staff
@@ -155,8 +156,7 @@ class StaffingResult:
         return pd.DataFrame(rows)
 
 
-def _num(x) -> float | None:
-    return None if x is None or not math.isfinite(x) else float(x)
+_num = json_number
 
 
 # --- targets -------------------------------------------------------------------------------------

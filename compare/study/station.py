@@ -54,6 +54,7 @@ import pandas as pd
 from desim import (Estimate, SettingsError, SimulationResult, SimulationSettings, replicate,
                    resolve_settings)
 from fluid.loading import load_scenario_text, with_changes
+from fluid.stations import POOL, station_yaml
 from fluid.scenario import RunSettings, Scenario
 
 from ..formulas.erlang import erlang_a_queue, erlang_b_loss, erlang_c_queue
@@ -81,7 +82,7 @@ SOURCES = {
     "cobham": "Cobham (1954), Operations Research 2(1):70-76",
     "whitt": "Whitt (2006), Operations Research 54(1):37-54",
 }
-_POOL = "agents"
+_POOL = POOL  # the station's pool (fluid.stations)
 
 
 def agrees(formula: float, est: Estimate) -> bool:
@@ -176,56 +177,6 @@ class StationResult:
 
 
 # --- the scenario --------------------------------------------------------------------------------
-
-
-def _hold_yaml(mean_hold: float, hold_cv: float, hold_dist: str) -> str:
-    if hold_cv == 1.0:
-        return f"{{dist: exponential, mean: {mean_hold!r}}}"
-    if hold_cv == 0.0:
-        return f"{{dist: deterministic, value: {mean_hold!r}}}"
-    return f"{{dist: {hold_dist}, mean: {mean_hold!r}, cv: {hold_cv!r}}}"
-
-
-def _patience_yaml(patience_mean: float | None) -> str:
-    if patience_mean is None:
-        return "{}"
-    if patience_mean == 0:
-        return "{patience: 0}"
-    return f"{{patience: {{dist: exponential, mean: {patience_mean!r}}}}}"
-
-
-def station_yaml(servers: int, arrival_rate: float, mean_hold: float, *,
-                 patience_mean: float | None = None, hold_cv: float = 1.0,
-                 hold_dist: str = "lognormal", class_rates: Sequence[float] | None = None,
-                 within: float | None = None, time_unit: str = "min") -> str:
-    """YAML text of the single-station scenario (design.md §3). With one class the names are
-    source ``calls``, places ``queue`` and ``talk``, transitions ``answer`` and ``close``; with
-    classes k = 1..K they carry the suffix ``_k`` and pool ``agents`` has priority
-    ``[answer_1, ..., answer_K]``. Exponential hold when ``hold_cv`` = 1, deterministic when 0,
-    else ``hold_dist`` (lognormal or gamma) with that cv; exponential patience, or 0 for a loss
-    system."""
-    within = mean_hold / 10 if within is None else within
-    hold = _hold_yaml(mean_hold, hold_cv, hold_dist)
-    queue = _patience_yaml(patience_mean)
-    rates = [arrival_rate] if class_rates is None else list(class_rates)
-    suffix = [""] if class_rates is None else [f"_{k}" for k in range(1, len(rates) + 1)]
-    lines = ["name: Station self-check (generated)", f"time_unit: {time_unit}", "sources:"]
-    lines += [f"  calls{s}: {{rate: {r!r}, into: queue{s}}}" for s, r in zip(suffix, rates)]
-    if class_rates is None:
-        lines += ["pools:", f"  {_POOL}: {servers}"]
-    else:
-        order = ", ".join(f"answer{s}" for s in suffix)
-        lines += ["pools:", f"  {_POOL}: {{staff: {servers}, priority: [{order}]}}"]
-    lines.append("places:")
-    for s in suffix:
-        lines += [f"  queue{s}: {queue}", f"  talk{s}: {{hold: {hold}}}"]
-    lines.append("transitions:")
-    for s in suffix:
-        lines += [f"  answer{s}: {{in: [queue{s}, {_POOL}], out: [talk{s}]}}",
-                  f"  close{s}: {{in: [talk{s}], out: [{_POOL}]}}"]
-    lines.append("targets:")
-    lines += [f"  queue{s}: {{within: {within!r}, goal: 0.8}}" for s in suffix]
-    return "\n".join(lines) + "\n"
 
 
 def station_scenario(servers: int, arrival_rate: float, mean_hold: float, **kw) -> Scenario:

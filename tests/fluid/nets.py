@@ -7,6 +7,7 @@ tests that use them. Holds are chosen so that the counters' grid divides them ex
 from __future__ import annotations
 
 from fluid import Scenario, load_scenario_text
+from fluid.stations import station_yaml
 
 
 def load(text: str) -> Scenario:
@@ -14,22 +15,10 @@ def load(text: str) -> Scenario:
 
 
 def single_pool(rate: float, staff: int, hold: float, horizon: float = 600) -> str:
-    """One queue, one pool of ``staff`` agents, deterministic mean hold ``hold``."""
-    return f"""
-name: single pool (invented test net)
-time_unit: min
-run: {{horizon: {horizon}, warmup: 0}}
-sources:
-  calls: {{rate: {rate}, into: queue}}
-pools:
-  agents: {staff}
-places:
-  queue: {{}}
-  talk: {{hold: {{dist: exponential, mean: {hold}}}}}
-transitions:
-  answer: {{in: [queue, agents], out: [talk]}}
-  close: {{in: [talk], out: [agents]}}
-"""
+    """One queue, one pool of ``staff`` agents, exponential holds of mean ``hold`` (the
+    counters read its mean only)."""
+    return station_yaml(staff, float(rate), float(hold), name="single pool (invented test net)",
+                        run={"horizon": horizon, "warmup": 0}, targets=False)
 
 
 def cold_transfer(billing_staff: int = 3) -> str:

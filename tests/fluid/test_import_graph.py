@@ -17,7 +17,7 @@ ROOT = Path(__file__).resolve().parents[2]
 PACKAGES = ("fluid", "desim")
 #: What desim may import from fluid: the frozen scenario and its parts, and the derived facts.
 DESIM_MAY_IMPORT = {"fluid.scenario", "fluid.distributions", "fluid.errors", "fluid.sources",
-                    "fluid.structure"}
+                    "fluid.structure", "fluid.json_values"}
 #: desim modules that are entry points reading YAML files (like the CLI), not library code: the
 #: benchmark (`python -m desim.bench`) loads the demo and its --scenario file itself.
 DESIM_ENTRY_POINTS = {"desim.bench"}
