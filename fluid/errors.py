@@ -89,9 +89,9 @@ def printable(text: object, limit: int = PATH_CHARS) -> str:
 def whole_number_text(value: int) -> str:
     """An integer as text, or ``an integer of N digits`` when it has more than 30 digits (a
     huge integer's full text is useless in a message and, past 4300 digits, refused by Python)."""
-    bits = abs(value).bit_length()
-    if bits <= 99:  # at most 30 digits
+    if -10**30 < value < 10**30:
         return repr(value)
+    bits = abs(value).bit_length()
     if bits <= 14_000:
         return f"an integer of {len(str(abs(value)))} digits"
     return f"an integer of about {int(bits * 0.30103) + 1} digits"

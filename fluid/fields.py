@@ -23,6 +23,8 @@ LARGEST_NUMBER = 1e12
 LARGEST_WHOLE = 10**9
 #: Names of places, pools, sources and transitions (matched whole: no trailing newline).
 NAME_PATTERN = re.compile(r"[a-z][a-z0-9_]*")
+#: The longest name (characters): names head the columns of every table.
+NAME_CHARS = 64
 
 
 class LongNumber:
@@ -95,7 +97,10 @@ def whole(value: Any, path: str, *, low: int = 0, high: int = LARGEST_WHOLE) -> 
 
 
 def name(value: Any, path: str) -> str:
-    """A name matching ``[a-z][a-z0-9_]*`` as a whole."""
+    """A name matching ``[a-z][a-z0-9_]*`` as a whole, of at most :data:`NAME_CHARS`
+    characters."""
     if not isinstance(value, str) or not NAME_PATTERN.fullmatch(value):
         raise FieldError(path, "a name must match [a-z][a-z0-9_]*", value)
+    if len(value) > NAME_CHARS:
+        raise FieldError(path, f"a name has at most {NAME_CHARS} characters", value)
     return value
