@@ -210,11 +210,14 @@ def _names(value: Any, path: str) -> tuple[str, ...]:
 
 
 def _text(value: Any, path: str, what: str, longest: int) -> str:
+    """A one-line text (surrounding white space, such as the newline a YAML block leaves, is
+    dropped) of at most ``longest`` characters."""
     if not isinstance(value, str) or not value.strip():
         raise FieldError(path, f"must be a non-empty text{what}", value)
-    if len(value) > longest or not value.isprintable():
+    text = value.strip()
+    if len(text) > longest or not text.isprintable():
         raise FieldError(path, f"must be one line of at most {longest} characters", value)
-    return value.strip()
+    return text
 
 
 def _steps(step: float, path: str, horizon: float, limits: Limits) -> None:

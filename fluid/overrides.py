@@ -24,6 +24,8 @@ __all__ = ["parse_override", "apply_override", "NAMED_SECTIONS"]
 #: Sections whose keys are names a scenario declares, with the word for one entry.
 NAMED_SECTIONS = {"pools": "pool", "places": "place", "sources": "source",
                   "transitions": "transition"}
+#: Sections a document may leave out whose fields ``--set`` may still give.
+OPTIONAL_SECTIONS = ("run", "targets")
 
 
 def parse_override(text: str, file: str = "--set") -> tuple[str, Any]:
@@ -62,7 +64,8 @@ def apply_override(doc: dict, path: str, value: Any, *, file: str = "<string>") 
     """Set ``path`` (dotted, with ``[i]`` for list items) to ``value`` in the YAML document.
 
     Only what the document already has can be changed, plus keys inside an existing entry
-    (``places.queue.patience`` on a place without patience): a pool, place, source or
+    (``places.queue.patience`` on a place without patience) and the fields of a ``run`` or
+    ``targets`` section the document leaves out: a pool, place, source or
     transition that is not there is refused with the names that are, since a typo would
     otherwise add an idle pool and leave the real one as it was. ``+pools.NAME=VALUE`` (and
     ``+places.``, ``+sources.``, ``+transitions.``) adds one on purpose.
@@ -108,7 +111,7 @@ def apply_override(doc: dict, path: str, value: Any, *, file: str = "<string>") 
     elif adding:
         raise ScenarioError(file, shown, "+ adds a pool, place, source or transition, e.g. "
                             "+pools.new_desk=3")
-    if len(parts) >= 2 and head == "pools":
+    if head == "pools" and len(parts) >= 2 and isinstance(parts[1], str):
         pools, entry = doc["pools"], parts[1]
         current = pools[entry]
         if len(parts) == 2 and isinstance(current, dict) and not isinstance(value, dict):
@@ -125,6 +128,8 @@ def apply_override(doc: dict, path: str, value: Any, *, file: str = "<string>") 
             return
         if len(parts) > 2 and not isinstance(current, dict):
             pools[entry] = {"staff": current}
+    if head in OPTIONAL_SECTIONS and len(parts) >= 2 and head not in doc:
+        doc[head] = {}  # (a section the document leaves out: its fields can still be set)
     node: Any = doc
     for i, key in enumerate(parts[:-1]):
         here = _join(parts[: i + 1])

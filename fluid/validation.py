@@ -39,19 +39,23 @@ def short_plans(s: Scenario, horizon: float) -> list[tuple[str, str]]:
         if a.kind == "profile" and len(a.rates) * a.step < horizon:
             end = len(a.rates) * a.step
             out.append((f"sources.{src.name}.profile",
-                        f"its {len(a.rates)} rates of step {a.step:g} end at {end:g} {unit}, "
-                        f"before the horizon {horizon:g}: the last rate ({a.rates[-1]:g} per "
-                        f"{unit}) holds from {end:g} on"))
+                        f"the profile ({_count(len(a.rates), 'rate')} of step {a.step:g}) ends "
+                        f"at {end:g} {unit}, before the horizon {horizon:g}: the last rate "
+                        f"({a.rates[-1]:g} per {unit}) holds from {end:g} on"))
     for pool in s.pools.values():
         sched = pool.schedule
         if sched is not None and len(sched.staff) * sched.step < horizon:
             end = len(sched.staff) * sched.step
-            last = sched.staff[-1]
             out.append((f"pools.{pool.name}.schedule",
-                        f"its {len(sched.staff)} staff levels of step {sched.step:g} end at "
-                        f"{end:g} {unit}, before the horizon {horizon:g}: the last level "
-                        f"({last} agent{'' if last == 1 else 's'}) holds from {end:g} on"))
+                        f"the schedule ({_count(len(sched.staff), 'staff level')} of step "
+                        f"{sched.step:g}) ends at {end:g} {unit}, before the horizon "
+                        f"{horizon:g}: the last level ({_count(sched.staff[-1], 'agent')}) "
+                        f"holds from {end:g} on"))
     return out
+
+
+def _count(n: int, word: str) -> str:
+    return f"{n} {word}{'' if n == 1 else 's'}"
 
 
 def _check_arcs(s: Scenario) -> None:

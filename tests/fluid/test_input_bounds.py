@@ -146,6 +146,15 @@ def test_set_adds_keys_inside_an_entry_and_plus_adds_an_entry():
         load(overrides=["+run.horizon=3"])
 
 
+def test_set_gives_fields_of_a_section_left_out_and_refuses_an_index_on_a_section():
+    s = load(overrides=["targets.queue={within: 1, goal: 0.5}"])
+    assert s.targets.service["queue"].goal == 0.5
+    assert load(BASE.replace("run: {horizon: 100, warmup: 10}\n", ""),
+                overrides=["run.horizon=50"]).run.horizon == 50
+    with pytest.raises(ScenarioError, match=r"pools\[0\]: no such list item"):
+        load(overrides=["pools[0]=1"])
+
+
 def test_set_on_a_scheduled_pool_names_the_real_problem():
     text = BASE.replace("  agents: 2", "  agents: {schedule: {step: 50, staff: [2, 3]}}")
     with pytest.raises(ScenarioError) as info:
@@ -256,10 +265,10 @@ def test_a_profile_or_schedule_shorter_than_the_horizon_warns():
     with pytest.warns(ScenarioWarning) as caught:
         load_scenario_text(text, file="b.yaml")
     assert [str(w.message) for w in caught] == [
-        "b.yaml: sources.calls.profile: its 2 rates of step 30 end at 60 min, before the "
-        "horizon 100: the last rate (2.5 per min) holds from 60 on",
-        "b.yaml: pools.agents.schedule: its 2 staff levels of step 40 end at 80 min, before the "
-        "horizon 100: the last level (1 agent) holds from 80 on"]
+        "b.yaml: sources.calls.profile: the profile (2 rates of step 30) ends at 60 min, "
+        "before the horizon 100: the last rate (2.5 per min) holds from 60 on",
+        "b.yaml: pools.agents.schedule: the schedule (2 staff levels of step 40) ends at 80 "
+        "min, before the horizon 100: the last level (1 agent) holds from 80 on"]
     with warnings.catch_warnings():
         warnings.simplefilter("error", ScenarioWarning)
         load_scenario_text(text, file="b.yaml", horizon=60.0)  # both cover [0, 60]

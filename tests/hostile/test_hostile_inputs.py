@@ -206,6 +206,8 @@ CASES = [
     case("--set a trace outside", ["inspect", "base.yaml", "--set",
                                    "sources.calls={trace: /etc/shadow, into: queue}"],
          "sources.calls.trace", "outside"),
+    case("--set a list index on a section", "inspect base.yaml --set pools[0]=1", "pools[0]",
+         "no such list item"),
     case("--set text for a rate", "inspect base.yaml --set sources.calls.rate=1e6x",
          "sources.calls.rate", "finite number"),
     # --- flags -------------------------------------------------------------------------------

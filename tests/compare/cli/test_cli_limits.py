@@ -65,8 +65,9 @@ def test_a_profile_shorter_than_the_horizon_warns_on_stderr(capsys):
     code, out, err = run(capsys, "fluid", BASE, "--set",
                          "sources.calls={profile: {step: 20, rates: [1, 2]}, into: queue}")
     assert code == 0
-    assert err == (f"warning: {BASE}: sources.calls.profile: its 2 rates of step 20 end at 40 "
-                   "min, before the horizon 100: the last rate (2 per min) holds from 40 on\n")
+    assert err == (f"warning: {BASE}: sources.calls.profile: the profile (2 rates of step 20) "
+                   "ends at 40 min, before the horizon 100: the last rate (2 per min) holds "
+                   "from 40 on\n")
 
 
 def test_flag_values_name_the_flag(capsys):
