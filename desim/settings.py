@@ -22,8 +22,7 @@ __all__ = ["SettingsError", "SimulationSettings", "resolve_settings", "SETTING_F
 #: The command-line flag of each setting (for messages).
 SETTING_FLAGS = {"replications": "--reps", "horizon": "--horizon", "warmup": "--warmup",
                  "seed": "--seed", "workers": "--workers", "max_jobs": "--max-jobs",
-                 "interval": "--interval", "out": "--out", "resume": "--resume",
-                 "arrivals": "--horizon"}
+                 "interval": "--interval", "out": "--out", "resume": "--resume"}
 #: The most worker processes asked for.
 MOST_WORKERS = 1024
 
@@ -204,12 +203,13 @@ def check_workload(arrivals_per_run: float, settings: SimulationSettings,
     """The expected arrivals of ``runs`` × ``settings.replications`` runs that each expect
     ``arrivals_per_run`` (see :func:`expected_arrivals`; ``runs``: runs per replication,
     weighted by their volume, e.g. the sum of the factors of a scale study); raises
-    :class:`SettingsError` (setting ``"arrivals"``) when it exceeds ``settings.limits.arrivals``,
+    :class:`SettingsError` (setting ``"horizon"``, with the replications and the limit in its
+    message) when it exceeds ``settings.limits.arrivals``,
     so that a run too long is refused before it starts."""
     total = arrivals_per_run * settings.replications * runs
     limit = settings.limits.arrivals
     if not total <= limit:  # (also when it is nan)
-        raise SettingsError("arrivals", f"{settings.horizon:g} with {settings.replications:,} "
+        raise SettingsError("horizon", f"{settings.horizon:g} with {settings.replications:,} "
                             f"replications would simulate about {total:.3g} arrivals "
                             f"({arrivals_per_run:.3g} per run"
                             + (f" × {runs:g} runs per replication" if runs != 1 else "")

@@ -55,7 +55,8 @@ def test_the_arrivals_estimate_is_checked_before_a_run():
     assert check_workload(2e6, settings, runs=2) == 1.2e7
     with pytest.raises(SettingsError) as info:
         check_workload(2e6, settings.with_changes(limits=Limits(arrivals=1e7)), runs=2)
-    assert info.value.setting == "arrivals" and "--max-arrivals" in str(info.value)
+    assert info.value.setting == "horizon" and "--max-arrivals" in str(info.value)
+    assert str(info.value).startswith("horizon 1e+06 with 3 replications would simulate")
     assert "about 1.2e+07 arrivals (2e+06 per run × 2 runs per replication)" in str(info.value)
 
 
