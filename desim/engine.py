@@ -49,7 +49,8 @@ import simpy
 
 from .net import INF, Job, Net, PatienceTimer, PlaceState, SourceState
 
-__all__ = ["Engine", "ConservationError", "SimulationError", "PatienceTimer", "STALE_TIMER_SLACK"]
+__all__ = ["Engine", "ConservationError", "SimulationError", "ClockStopped", "PatienceTimer",
+           "STALE_TIMER_SLACK", "EVENTS_AT_ONE_INSTANT"]
 
 _FIRST = 0  # snapshots and the end of a run (SimPy's URGENT): before the rest of an instant
 _NORMAL = 1
@@ -57,6 +58,9 @@ _LATE = 2  # after every normal event at the same instant (patience deadlines)
 
 #: Superseded patience timers of a place allowed in the event queue beyond twice its jobs waiting.
 STALE_TIMER_SLACK = 16
+#: Events at one instant after which a run is stopped as stuck (:class:`ClockStopped`), unless
+#: the net itself can need more (recorded arrivals sharing an instant; see ``desim.run``).
+EVENTS_AT_ONE_INSTANT = 1_000_000
 
 
 class SimulationError(RuntimeError):
@@ -65,6 +69,15 @@ class SimulationError(RuntimeError):
 
 class ConservationError(SimulationError):
     """arrivals != completed + abandoned + inside at the end of a run."""
+
+
+class ClockStopped(ValueError):
+    """The simulated clock stopped advancing: more events at one instant than a run can need
+    (a scenario whose jobs circle through near-zero holding times, say). Bad input, not a bug:
+    the command line reports it in one line with exit code 2."""
+
+    def __init__(self, message: str):
+        super().__init__(message)
 
 
 class _Hook:
@@ -103,13 +116,17 @@ class Engine:
     default) records nothing. ``records``: a list collecting job records ``(id, source, arrival,
     end, outcome)`` with outcome ``"completed:<transition>"`` or ``"abandoned:<place>"``, or None.
     ``warmup``: waits are recorded (with ``record_waits`` nets) from this time on.
+    ``events_at_one_instant``: a run whose clock stays at one instant for more events than
+    this raises :class:`ClockStopped` (checked once per that many events: the clock has not
+    moved between two checks only when every event between them shared one instant).
 
     The shortcuts are switched by the net (``build_net(..., shortcuts=False)``): without them
     every token goes through the general firing logic; the results are identical.
     """
 
     def __init__(self, net: Net, *, max_jobs: int = 1_000_000, trace: list | None = None,
-                 records: list | None = None, warmup: float = 0.0):
+                 records: list | None = None, warmup: float = 0.0,
+                 events_at_one_instant: int = EVENTS_AT_ONE_INSTANT):
         self.net = net
         self.env = simpy.Environment()
         self.queue = self.env._queue  # SimPy's heap of (time, priority, eid, item)
@@ -129,6 +146,7 @@ class Engine:
         self.unstable = False
         self.timed_places = tuple(p for p in net.places.values() if p.patience is not None)
         self.dropped_timers = 0  # superseded patience timers removed from the event queue
+        self.events_at_one_instant = events_at_one_instant
 
     # --- running ----------------------------------------------------------------------------------
 
@@ -171,8 +189,15 @@ class Engine:
         ids = self.ids if trace is not None or records is not None else None
         spare, max_jobs = self.spare, self.max_jobs
         now = env.now
+        every = left = self.events_at_one_instant
+        checked_at = None
         while True:
             now, _, _, ev = pop(q)
+            left -= 1
+            if not left:  # (a countdown costs less per event than comparing times)
+                if now == checked_at:
+                    self._clock_stopped(now, ev)
+                checked_at, left = now, every
             cls = ev.__class__
             if cls is Job:  # the end of a hold
                 fifo = ev.fifo
@@ -335,6 +360,23 @@ class Engine:
                     self._settle(now)
         env._now = now
         return now
+
+    def _clock_stopped(self, now: float, ev) -> None:
+        """Raise :class:`ClockStopped` saying where the events of the instant ``now`` act."""
+        where: dict[str, None] = {}
+        for item in [ev, *(e[3] for e in self.queue if e[0] == now)][:10_000]:
+            if isinstance(item, Job):
+                where[f"ends of holds at place {item.fifo.place.name}"] = None
+            elif isinstance(item, PatienceTimer):
+                where[f"patience deadlines at place {item.place.name}"] = None
+            elif isinstance(item, SourceState):
+                where[f"arrivals of source {item.name}"] = None
+        what = ", ".join(list(where)[:4]) or "events"
+        raise ClockStopped(
+            f"{self.net.scenario.file}: the simulated clock stopped at t={now:g} "
+            f"{self.net.scenario.time_unit}: more than {self.events_at_one_instant:,} events at "
+            f"that instant ({what}); look for jobs circling through places whose holding times "
+            "or patience are (near) zero")
 
     # --- marking changes (each returns the bits of the transitions it may have enabled) ---------
 

@@ -27,15 +27,16 @@ All times are in the scenario's time unit.
 from __future__ import annotations
 
 import math
+import sys
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
 
-from fluid.scenario import Scenario
+from fluid.scenario import Limits, Scenario
 from fluid.structure import waiting_places
 
-from .engine import Engine
+from .engine import EVENTS_AT_ONE_INSTANT, Engine
 from .net import Net, build_net
 from .warmup import MserResult, mser5
 
@@ -99,14 +100,20 @@ class RunResult:
         return out
 
 
+#: No bound on intervals: one run checks only that its settings make sense (the limits are the
+#: caller's, checked once by :func:`desim.resolve_settings`).
+_ANY_INTERVALS = Limits(intervals=sys.maxsize)
+
+
 def check_settings(horizon: float, warmup: float, interval: float | None = None,
                    max_jobs: int | None = None) -> None:
     """Raise :class:`desim.SettingsError` (a ValueError) for settings no run can use (the
-    checks of :func:`desim.resolve_settings`)."""
+    checks of :func:`desim.resolve_settings`, without its limits)."""
     from .settings import SimulationSettings
 
     SimulationSettings(replications=1, horizon=horizon, warmup=warmup, seed=0,
-                       interval=interval, max_jobs=max_jobs).with_changes()
+                       interval=interval, max_jobs=max_jobs,
+                       limits=_ANY_INTERVALS).with_changes()
 
 
 def _snapshot(net: Net, now: float) -> np.ndarray:
@@ -207,6 +214,13 @@ def _interval_table(scenario: Scenario, net: Net, times: list[float], snaps: lis
     return pd.DataFrame(rows, columns=["interval", "start", "end", "metric", "name", "value"])
 
 
+def _events_at_one_instant(scenario: Scenario) -> int:
+    """Events one instant may hold before the run is stopped as stuck: the engine's bound, plus
+    room for every recorded arrival to share an instant and pass through every place in it."""
+    recorded = sum(len(s.arrivals.file_data or ()) for s in scenario.sources.values())
+    return EVENTS_AT_ONE_INSTANT + recorded * (len(scenario.places) + 2)
+
+
 def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float | None = None,
                     warmup: float | None = None, seed: int | None = None,
                     interval: float | None = None, max_jobs: int | None = None,
@@ -223,7 +237,9 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
     abandonment (see :class:`desim.engine.Engine`). ``shortcuts``: let the engine use its
     shortcuts (the default); False runs the general firing logic alone, with identical results
     and trace, only slower (see :func:`desim.net.build_net`). Raises
-    :class:`desim.engine.ConservationError` if the run's job count does not balance.
+    :class:`desim.engine.ConservationError` if the run's job count does not balance, and
+    :class:`desim.engine.ClockStopped` if its clock stops advancing (more events at one instant
+    than the net can need).
     """
     run = scenario.run
     horizon = float(run.horizon if horizon is None else horizon)
@@ -234,7 +250,8 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
 
     net = build_net(scenario, seed, replication, record_waits=record_waits, shortcuts=shortcuts)
     jobs: list | None = [] if record_jobs else None
-    engine = Engine(net, max_jobs=max_jobs, trace=trace, records=jobs, warmup=warmup)
+    engine = Engine(net, max_jobs=max_jobs, trace=trace, records=jobs, warmup=warmup,
+                    events_at_one_instant=_events_at_one_instant(scenario))
     engine.start()
 
     snaps: dict[str, np.ndarray] = {}

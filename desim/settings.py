@@ -14,12 +14,17 @@ import os
 from dataclasses import dataclass, field, replace
 from typing import Any
 
-__all__ = ["SettingsError", "SimulationSettings", "resolve_settings", "SETTING_FLAGS"]
+from fluid.scenario import LARGEST_SEED, LIMIT_FLAGS, Limits
+
+__all__ = ["SettingsError", "SimulationSettings", "resolve_settings", "SETTING_FLAGS",
+           "check_workload", "expected_arrivals", "LARGEST_SEED"]
 
 #: The command-line flag of each setting (for messages).
 SETTING_FLAGS = {"replications": "--reps", "horizon": "--horizon", "warmup": "--warmup",
                  "seed": "--seed", "workers": "--workers", "max_jobs": "--max-jobs",
                  "interval": "--interval", "out": "--out", "resume": "--resume"}
+#: The most worker processes asked for.
+MOST_WORKERS = 1024
 
 
 class SettingsError(ValueError):
@@ -36,6 +41,9 @@ class SettingsError(ValueError):
         ``fluidgap simulate: --horizon must be > 0 (got -1)``."""
         return f"{command}: {SETTING_FLAGS.get(self.setting, self.setting)} {self.problem}"
 
+    def __reduce__(self):  # (raised in worker processes too)
+        return (SettingsError, (self.setting, self.problem))
+
 
 @dataclass(frozen=True)
 class SimulationSettings:
@@ -48,8 +56,10 @@ class SimulationSettings:
     ``concurrent.futures`` executor (e.g. a Dask client's), used instead of local processes;
     ``max_jobs``: jobs inside a run at which it is stopped as unstable (None: the engine's
     default); ``interval``: length of the per-interval tables (None: none, or the study's
-    default); ``out``/``resume``: the crash-safe run folder and whether to continue it. The
-    numbers never depend on ``workers`` or ``executor``."""
+    default); ``out``/``resume``: the crash-safe run folder and whether to continue it;
+    ``limits``: the bounds checked here (replications, intervals per run) and by
+    :func:`check_workload` (:class:`fluid.scenario.Limits`). The numbers never depend on
+    ``workers``, ``executor`` or ``limits``."""
 
     replications: int
     horizon: float
@@ -61,6 +71,7 @@ class SimulationSettings:
     interval: float | None = None
     out: str | None = None
     resume: bool = False
+    limits: Limits = field(default=Limits(), compare=False, repr=False)
 
     @property
     def window(self) -> tuple[float, float]:
@@ -88,30 +99,47 @@ class SimulationSettings:
                 "warmup": self.warmup, "seed": self.seed}
 
 
+def _shown(value: Any) -> str:
+    from fluid.errors import short_repr
+
+    return short_repr(value)
+
+
 def _number(name: str, value: Any, kind=float):
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         try:
             value = kind(value)
         except (TypeError, ValueError, OverflowError):
-            raise SettingsError(name, f"must be a number (got {value!r})") from None
+            raise SettingsError(name, f"must be a number (got {_shown(value)})") from None
     if kind is int:
         if isinstance(value, float):
             if not (math.isfinite(value) and value.is_integer()):
-                raise SettingsError(name, f"must be a whole number (got {value!r})")
+                raise SettingsError(name, f"must be a whole number (got {_shown(value)})")
         return int(value)
-    value = float(value)
+    try:
+        value = float(value)
+    except OverflowError:
+        raise SettingsError(name, f"must be a finite number (got {_shown(value)})") from None
     if math.isnan(value):
         raise SettingsError(name, "must be a number (got nan)")
     return value
 
 
+def _at_most(name: str, value: int, high: int, why: str = "") -> None:
+    if value > high:
+        raise SettingsError(name, f"must be at most {high:,}{why} (got {_shown(value)})")
+
+
 def _validated(s: SimulationSettings) -> SimulationSettings:
+    limits = s.limits if isinstance(s.limits, Limits) else Limits()
     reps = _number("replications", s.replications, int)
     horizon = _number("horizon", s.horizon)
     warmup = _number("warmup", s.warmup)
     seed = _number("seed", s.seed, int)
     if reps < 1:
         raise SettingsError("replications", f"must be >= 1 (got {reps})")
+    _at_most("replications", reps, limits.replications,
+             f", the limit (raise it with {LIMIT_FLAGS['replications']})")
     if not (math.isfinite(horizon) and horizon > 0):
         raise SettingsError("horizon", f"must be > 0 (got {horizon:g})")
     if not 0 <= warmup < horizon:
@@ -119,21 +147,28 @@ def _validated(s: SimulationSettings) -> SimulationSettings:
                             f"(got {warmup:g})")
     if seed < 0:
         raise SettingsError("seed", f"must be >= 0 (got {seed})")
+    _at_most("seed", seed, LARGEST_SEED)
     workers = None if s.workers is None else _number("workers", s.workers, int)
     if workers is not None and workers < 1:
         raise SettingsError("workers", f"must be >= 1 (got {workers})")
+    if workers is not None:
+        _at_most("workers", workers, MOST_WORKERS)
     max_jobs = None if s.max_jobs is None else _number("max_jobs", s.max_jobs, int)
     if max_jobs is not None and max_jobs < 1:
         raise SettingsError("max_jobs", f"must be >= 1 (got {max_jobs})")
     interval = None if s.interval is None else _number("interval", s.interval)
     if interval is not None and not (math.isfinite(interval) and interval > 0):
         raise SettingsError("interval", f"must be > 0 (got {interval:g})")
+    if interval is not None and horizon / interval > limits.intervals:
+        raise SettingsError("interval", f"{interval:g} cuts the horizon {horizon:g} into "
+                            f"{horizon / interval:.3g} intervals, more than the limit of "
+                            f"{limits.intervals:,} (raise it with {LIMIT_FLAGS['intervals']})")
     if s.resume and s.out is None:
         raise SettingsError("resume", "needs --out DIR, the run directory to resume from")
     return SimulationSettings(
         replications=reps, horizon=horizon, warmup=warmup, seed=seed, workers=workers,
         executor=s.executor, max_jobs=max_jobs, interval=interval,
-        out=None if s.out is None else os.fspath(s.out), resume=bool(s.resume))
+        out=None if s.out is None else os.fspath(s.out), resume=bool(s.resume), limits=limits)
 
 
 def resolve_settings(run, settings: SimulationSettings | None = None, *,
@@ -142,13 +177,43 @@ def resolve_settings(run, settings: SimulationSettings | None = None, *,
                      workers: int | None = None, executor: Any = None,
                      max_jobs: int | None = None, interval: float | None = None,
                      out: str | os.PathLike | None = None,
-                     resume: bool | None = None) -> SimulationSettings:
+                     resume: bool | None = None,
+                     limits: Limits | None = None) -> SimulationSettings:
     """Validated settings: each keyword given (not None) wins over ``settings``, which wins over
     the defaults in ``run`` (a scenario's :class:`~fluid.scenario.RunSettings`: horizon,
-    warmup, replications, seed). Raises :class:`SettingsError` naming the first bad setting."""
+    warmup, replications, seed). ``limits``: the bounds on replications and intervals per run
+    (:class:`fluid.scenario.Limits`; default: those of ``settings``, else the defaults).
+    Raises :class:`SettingsError` naming the first bad setting."""
     base = settings or SimulationSettings(replications=run.replications, horizon=run.horizon,
                                           warmup=run.warmup, seed=run.seed)
     given = {"replications": reps, "horizon": horizon, "warmup": warmup, "seed": seed,
              "workers": workers, "executor": executor, "max_jobs": max_jobs,
-             "interval": interval, "out": out, "resume": resume}
+             "interval": interval, "out": out, "resume": resume, "limits": limits}
     return _validated(replace(base, **{k: v for k, v in given.items() if v is not None}))
+
+
+def expected_arrivals(scenario, horizon: float) -> float:
+    """Expected (or, for a trace, recorded) arrivals of one run of ``scenario`` over
+    ``[0, horizon]`` (time units), all sources together."""
+    return sum(src.arrivals.cumulative(horizon) for src in scenario.sources.values())
+
+
+def check_workload(arrivals_per_run: float, settings: SimulationSettings,
+                   runs: float = 1.0) -> float:
+    """The expected arrivals of ``runs`` × ``settings.replications`` runs that each expect
+    ``arrivals_per_run`` (see :func:`expected_arrivals`; ``runs``: runs per replication,
+    weighted by their volume, e.g. the sum of the factors of a scale study); raises
+    :class:`SettingsError` (setting ``"horizon"``, with the replications and the limit in its
+    message) when it exceeds ``settings.limits.arrivals``,
+    so that a run too long is refused before it starts."""
+    total = arrivals_per_run * settings.replications * runs
+    limit = settings.limits.arrivals
+    if not total <= limit:  # (also when it is nan)
+        raise SettingsError("horizon", f"{settings.horizon:g} with {settings.replications:,} "
+                            f"replications would simulate about {total:.3g} arrivals "
+                            f"({arrivals_per_run:.3g} per run"
+                            + (f" × {runs:g} runs per replication" if runs != 1 else "")
+                            + f"), more than the limit of {limit:.3g}: shorten the horizon, "
+                            f"run fewer replications, or raise the limit with "
+                            f"{LIMIT_FLAGS['arrivals']}")
+    return total

@@ -24,7 +24,9 @@ from typing import Any, ClassVar, Protocol
 
 import numpy as np
 
+from .datafiles import DataFolder
 from .errors import FieldError
+from .fields import LARGEST_NUMBER, LARGEST_WHOLE, LongNumber, as_float
 
 __all__ = [
     "Distribution",
@@ -58,43 +60,67 @@ class Distribution(Protocol):
 # --- parameter domains ---------------------------------------------------------------------------
 
 
-def _finite(value: Any, path: str, *, positive: bool = False) -> float:
-    """``value`` as a float when it is a finite number >= 0 (> 0 with ``positive``)."""
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise FieldError(path, "must be a finite number", value)
-    if value < 0:
+def _finite(value: Any, path: str, *, positive: bool = False, high: float = LARGEST_NUMBER,
+            smallest: float = 0.0) -> float:
+    """``value`` as a float when it is a finite number >= 0 (> 0 with ``positive``), at most
+    ``high``, and either 0 or at least ``smallest``."""
+    x = as_float(value, path)
+    if x < 0:
         raise FieldError(path, "must be >= 0", value)
-    if positive and value == 0:
+    if positive and x == 0:
         raise FieldError(path, "must be > 0", value)
-    return float(value)
+    if x > high:
+        raise FieldError(path, f"must be at most {high:g}", value)
+    if 0 < x < smallest:
+        raise FieldError(path, f"must be {'' if positive else '0 or '}at least {smallest:g}",
+                         value)
+    return x
 
 
 @dataclass(frozen=True)
 class Real:
-    """A required finite number >= 0 (also > 0 when ``positive``)."""
+    """A required finite number >= 0 (also > 0 when ``positive``), at most ``high``, and 0 or
+    at least ``smallest`` (bounds where the distribution's arithmetic stops making sense)."""
 
     positive: bool = False
+    high: float = LARGEST_NUMBER
+    smallest: float = 0.0
 
     def read(self, spec: dict, key: str, path: str) -> float:
         if key not in spec:
             raise FieldError(f"{path}.{key}", "is required")
-        return _finite(spec[key], f"{path}.{key}", positive=self.positive)
+        return _finite(spec[key], f"{path}.{key}", positive=self.positive, high=self.high,
+                       smallest=self.smallest)
 
 
 @dataclass(frozen=True)
 class Whole:
-    """A whole number >= ``low`` (a bool is not one; a missing key reads as None and fails)."""
+    """A whole number in ``[low, high]`` (a bool is not one; a missing key reads as None and
+    fails)."""
 
     low: int = 1
+    high: int = LARGEST_WHOLE
 
     def read(self, spec: dict, key: str, path: str) -> int:
         value = spec.get(key)
+        if isinstance(value, LongNumber) and not value.negative:
+            raise FieldError(f"{path}.{key}", f"must be at most {self.high:,}", value)
         if isinstance(value, bool) or not isinstance(value, int) or value < self.low:
             raise FieldError(f"{path}.{key}", f"must be a whole number >= {self.low}", value)
+        if value > self.high:
+            raise FieldError(f"{path}.{key}", f"must be at most {self.high:,}", value)
         return value
 
 
-NON_NEGATIVE, POSITIVE, AT_LEAST_ONE = Real(), Real(positive=True), Whole(1)
+NON_NEGATIVE, POSITIVE = Real(), Real(positive=True)
+#: A coefficient of variation: 0 (the point mass) or in [1e-6, 100]; below, the gamma's shape
+#: 1/cv² overflows; above, draws underflow to 0 and overflow to inf.
+CV = Real(high=100.0, smallest=1e-6)
+#: A Weibull shape in [0.02, 1000]: below, Γ(1 + 2/k) overflows (the cv is infinite).
+WEIBULL_SHAPE = Real(positive=True, high=1000.0, smallest=0.02)
+#: Erlang phases: 1 to a million (the cv 1/sqrt(k) is then 0.001).
+PHASES = Whole(1, high=10**6)
+AT_LEAST_ONE = Whole(1)
 
 
 @dataclass(frozen=True)
@@ -137,7 +163,7 @@ class _Distribution:
         return tuple(p.key for p in cls.params)
 
     @classmethod
-    def from_spec(cls, spec: dict, path: str, base_dir: Path | None):
+    def from_spec(cls, spec: dict, path: str, base_dir: Path | DataFolder | None):
         """Check each declared parameter of ``spec`` against its domain and build the object;
         raises :class:`FieldError` naming ``path`` and the key."""
         read: dict[str, Any] = {}
@@ -162,7 +188,7 @@ class _ByMeanCv(_ByMean):
     """A distribution given by its mean and cv (fields ``mean_value``, ``cv_value``); cv 0 is
     the point mass at the mean. Subclasses draw and give the CDF for cv > 0."""
 
-    params = (Param("mean", "mean_value", POSITIVE), Param("cv", "cv_value", NON_NEGATIVE))
+    params = (Param("mean", "mean_value", POSITIVE), Param("cv", "cv_value", CV))
 
     @property
     def cv(self) -> float:
@@ -269,7 +295,7 @@ class Erlang(_ByMean):
     mean_value: float
     k: int
     name = "erlang"
-    params = (Param("k", "k", AT_LEAST_ONE), Param("mean", "mean_value", POSITIVE))
+    params = (Param("k", "k", PHASES), Param("mean", "mean_value", POSITIVE))
 
     @property
     def cv(self) -> float:
@@ -317,7 +343,7 @@ class Weibull(_ByMean):
     mean_value: float
     shape: float
     name = "weibull"
-    params = (Param("mean", "mean_value", POSITIVE), Param("shape", "shape", POSITIVE))
+    params = (Param("mean", "mean_value", POSITIVE), Param("shape", "shape", WEIBULL_SHAPE))
 
     @property
     def scale(self) -> float:
@@ -335,7 +361,12 @@ class Weibull(_ByMean):
         return self.scale * rng.weibull(self.shape, size)
 
     def cdf(self, x: float) -> float:
-        return 0.0 if x <= 0 else -math.expm1(-((x / self.scale) ** self.shape))
+        if x <= 0:
+            return 0.0
+        try:
+            return -math.expm1(-((x / self.scale) ** self.shape))
+        except OverflowError:  # (x / scale)^shape beyond the largest float: certainly done
+            return 1.0
 
 
 @dataclass(frozen=True)
@@ -352,7 +383,7 @@ class Empirical(_Distribution):
         return ("values", "file")
 
     @classmethod
-    def from_spec(cls, spec: dict, path: str, base_dir: Path | None) -> Empirical:
+    def from_spec(cls, spec: dict, path: str, base_dir: Path | DataFolder | None) -> Empirical:
         if ("values" in spec) == ("file" in spec):
             raise FieldError(path, "empirical needs exactly one of 'values' or 'file'")
         if "values" in spec:
@@ -384,21 +415,24 @@ def _parse_values(values: Any, path: str) -> tuple[float, ...]:
     return tuple(_finite(v, f"{path}[{i}]") for i, v in enumerate(values))
 
 
-def _read_values_file(name: Any, path: str, base_dir: Path | None) -> tuple[float, ...]:
-    if not isinstance(name, str) or not name:
-        raise FieldError(path, "must be a file name", name)
-    file = Path(name) if base_dir is None else base_dir / name
-    try:
-        lines = file.read_text().split()
-    except OSError as exc:
-        raise FieldError(path, f"cannot read {file}: {exc.strerror}", name) from None
-    values = []
-    for i, word in enumerate(lines):
-        try:
-            values.append(float(word))
-        except ValueError:
-            raise FieldError(path, f"{file}: entry {i + 1} is not a number", word) from None
-    return _parse_values(values, path)
+def _folder(base_dir: Path | DataFolder | None) -> DataFolder:
+    if isinstance(base_dir, DataFolder):
+        return base_dir
+    return DataFolder(Path.cwd() if base_dir is None else Path(base_dir))
+
+
+def _read_values_file(name: Any, path: str, base_dir: Path | DataFolder | None
+                      ) -> tuple[float, ...]:
+    """The numbers of an empirical file, read by :class:`fluid.datafiles.DataFolder` (inside
+    the scenario's folder, bounded, no content in messages)."""
+    values, lines = _folder(base_dir).read_numbers(name, path)
+    if not values:
+        raise FieldError(path, f"{name} holds no numbers", name)
+    for i, v in enumerate(values):
+        if not (LARGEST_NUMBER >= v >= 0):  # (also refuses nan and inf)
+            raise FieldError(path, f"{name}: entry {i + 1} must be a number >= 0 and at most "
+                             f"{LARGEST_NUMBER:g} (line {lines[i]})")
+    return tuple(values)
 
 
 #: The distributions by YAML name, in the order error messages list them.
@@ -409,15 +443,24 @@ DISTRIBUTIONS: dict[str, type[_Distribution]] = {
 DISTRIBUTION_NAMES = tuple(DISTRIBUTIONS)
 
 
-def parse_distribution(spec: Any, path: str, base_dir: Path | None = None) -> Distribution:
+def parse_distribution(spec: Any, path: str,
+                       base_dir: Path | DataFolder | None = None) -> Distribution:
     """Read a distribution from its YAML form: a plain number (deterministic) or a mapping
-    ``{dist: NAME, ...}``. Raises :class:`FieldError` naming ``path`` on any problem."""
+    ``{dist: NAME, ...}``. ``base_dir``: the folder an empirical ``file`` is read from (the
+    working directory when None), or a :class:`fluid.datafiles.DataFolder` with its limits.
+    Raises :class:`FieldError` naming ``path`` on any problem."""
     if isinstance(spec, bool):
         raise FieldError(path, "must be a number or {dist: NAME, ...}", spec)
+    if isinstance(spec, LongNumber):
+        raise FieldError(path, "must be a finite number >= 0" if spec.negative
+                         else f"must be at most {LARGEST_NUMBER:g}", spec)
     if isinstance(spec, (int, float)):
-        if not math.isfinite(spec) or spec < 0:
+        x = as_float(spec, path) if isinstance(spec, int) else float(spec)  # (an int: or ±inf)
+        if x > LARGEST_NUMBER and (isinstance(spec, int) or math.isfinite(x)):
+            raise FieldError(path, f"must be at most {LARGEST_NUMBER:g}", spec)
+        if not math.isfinite(x) or x < 0:
             raise FieldError(path, "must be a finite number >= 0", spec)
-        return Deterministic(float(spec))
+        return Deterministic(x)
     if not isinstance(spec, dict):
         raise FieldError(path, "must be a number or {dist: NAME, ...}", spec)
     name = spec.get("dist")

@@ -1,27 +1,32 @@
-"""Reading a scenario: YAML without duplicate keys, ``--set`` overrides, and validation; variants
-of a scenario (:func:`with_changes`) go through the same overrides and validation.
+"""Reading a scenario: YAML (:mod:`fluid.yaml_text`: no duplicate keys, YAML 1.2 numbers, a
+budget of values), ``--set`` overrides (:mod:`fluid.overrides`), and validation field by field
+(:mod:`fluid.fields`); variants of a scenario (:func:`with_changes`) go through the same
+overrides and validation.
 
 Everything a user can get wrong is reported as one :class:`~fluid.errors.ScenarioError` naming
-the file, the field path and the value; nothing else escapes :func:`load_scenario` for bad
-input. The validation rules are those of design.md §3; the structural checks that need the whole
-net live in :mod:`fluid.validation`.
+the file, the field path and the value (bounded); nothing else escapes :func:`load_scenario` for
+bad input. The work is bounded for any input: the scenario file and the files it names are read
+by :mod:`fluid.datafiles` (regular files only, inside the scenario's folder, at most so many
+numbers), and profile and schedule steps may cut the horizon into at most
+``Limits.intervals`` intervals. The validation rules are those of design.md §3; the structural
+checks that need the whole net live in :mod:`fluid.validation`.
 """
 
 from __future__ import annotations
 
 import json
-import math
-import re
 import warnings
 from pathlib import Path
 from typing import Any, Iterable, Mapping
 
-import yaml
-
+from .datafiles import SCENARIO_BYTES, DataFolder, NotARegularFile, open_regular
 from .distributions import parse_distribution
-from .errors import FieldError, ScenarioError
+from .errors import FieldError, ScenarioError, printable
+from .fields import LARGEST_NUMBER, name as _name, number as _real, whole as _whole
 from .scenario import (
+    LARGEST_SEED,
     FrozenMap,
+    Limits,
     Place,
     Pool,
     RunSettings,
@@ -33,7 +38,9 @@ from .scenario import (
     Transition,
 )
 from .sources import PoissonArrivals, ProfileArrivals, TraceArrivals
-from .validation import check_structure
+from .overrides import apply_override, parse_override
+from .validation import check_structure, short_plans
+from .yaml_text import parse_yaml as _parse_yaml
 
 __all__ = [
     "load_scenario",
@@ -45,7 +52,6 @@ __all__ = [
     "ScenarioWarning",
 ]
 
-NAME_PATTERN = re.compile(r"^[a-z][a-z0-9_]*$")
 TOP_KEYS = ("name", "time_unit", "run", "sources", "pools", "places", "transitions", "targets")
 ROUTE_TOLERANCE = 1e-9
 
@@ -54,147 +60,51 @@ class ScenarioWarning(UserWarning):
     """Something in a scenario that is allowed but probably not meant (e.g. a leaking pool)."""
 
 
-# --- YAML ----------------------------------------------------------------------------------------
-
-
-class _UniqueKeyLoader(yaml.SafeLoader):
-    """SafeLoader that refuses a mapping with the same key twice."""
-
-
-def _construct_mapping(loader: _UniqueKeyLoader, node: yaml.MappingNode, deep: bool = False):
-    loader.flatten_mapping(node)
-    seen: dict[Any, Any] = {}
-    for key_node, value_node in node.value:
-        key = loader.construct_object(key_node, deep=deep)
-        try:
-            hash(key)
-        except TypeError:
-            raise yaml.constructor.ConstructorError(
-                None, None, "a mapping key must be a plain value", key_node.start_mark
-            ) from None
-        if key in seen:
-            raise yaml.constructor.ConstructorError(
-                None, None, f"duplicate key {key!r}", key_node.start_mark
-            )
-        seen[key] = loader.construct_object(value_node, deep=deep)
-    return seen
-
-
-_UniqueKeyLoader.add_constructor(
-    yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _construct_mapping
-)
-
-
-def _parse_yaml(text: str, file: str) -> Any:
-    try:
-        return yaml.load(text, Loader=_UniqueKeyLoader)  # noqa: S506 - a SafeLoader subclass
-    except yaml.MarkedYAMLError as exc:
-        mark = exc.problem_mark or exc.context_mark
-        where = f"line {mark.line + 1}, column {mark.column + 1}: " if mark else ""
-        raise ScenarioError(file, "", f"not valid YAML: {where}{exc.problem or exc}") from None
-    except yaml.YAMLError as exc:
-        raise ScenarioError(file, "", f"not valid YAML: {exc}") from None
-    except RecursionError:
-        raise ScenarioError(file, "", "not valid YAML: nested too deeply") from None
-
-
-# --- overrides -----------------------------------------------------------------------------------
-
-
-def parse_override(text: str, file: str = "--set") -> tuple[str, Any]:
-    """Split ``PATH=VALUE`` and read VALUE as a YAML scalar (``12`` is an int, ``3.5`` a float,
-    ``{dist: exponential, mean: 3}`` a mapping)."""
-    if "=" not in text:
-        raise ScenarioError(file, "", "expected PATH=VALUE", text)
-    path, _, raw = text.partition("=")
-    path = path.strip()
-    if not path:
-        raise ScenarioError(file, "", "expected PATH=VALUE", text)
-    return path, _parse_yaml(raw, f"--set {path}")
-
-
-def _split_path(path: str) -> list[str | int]:
-    parts: list[str | int] = []
-    for word in path.split("."):
-        match = re.fullmatch(r"([^\[\]]*)((?:\[\d+\])*)", word)
-        if not match or not match.group(1):
-            raise FieldError(path, "is not a field path like pools.front_desk or rates[2]")
-        parts.append(match.group(1))
-        parts.extend(int(i) for i in re.findall(r"\[(\d+)\]", match.group(2)))
-    return parts
-
-
-def apply_override(doc: dict, path: str, value: Any, *, file: str = "<string>") -> None:
-    """Set ``path`` (dotted, with ``[i]`` for list items) to ``value`` in the YAML document.
-
-    Convenience for pools written in the long form: ``pools.NAME=12`` sets that pool's
-    ``staff`` and keeps its priority; ``pools.NAME.priority=[...]`` on a pool written as a
-    plain number turns it into the long form.
-    """
-    try:
-        parts = _split_path(path)
-    except FieldError as exc:
-        raise exc.to_scenario_error(file) from None
-    if not isinstance(doc, dict):
-        raise ScenarioError(file, "", "the document must be a mapping")
-    if len(parts) >= 2 and parts[0] == "pools" and isinstance(doc.get("pools"), dict):
-        pools = doc["pools"]
-        name = parts[1]
-        if len(parts) == 2 and isinstance(pools.get(name), dict) and not isinstance(value, dict):
-            pools[name]["staff"] = value
-            return
-        if len(parts) > 2 and name in pools and not isinstance(pools[name], dict):
-            pools[name] = {"staff": pools[name]}
-    node: Any = doc
-    for i, key in enumerate(parts[:-1]):
-        here = _join(parts[: i + 1])
-        if isinstance(key, int):
-            if not isinstance(node, list) or key >= len(node):
-                raise ScenarioError(file, here, "no such list item (from --set)")
-            node = node[key]
-        else:
-            if not isinstance(node, dict) or key not in node:
-                raise ScenarioError(file, here, "no such field to change (from --set)")
-            node = node[key]
-    last = parts[-1]
-    if isinstance(last, int):
-        if not isinstance(node, list) or last >= len(node):
-            raise ScenarioError(file, path, "no such list item (from --set)")
-    elif not isinstance(node, dict):
-        raise ScenarioError(file, path, "its parent is not a mapping (from --set)")
-    node[last] = value
-
-
-def _join(parts: list[str | int]) -> str:
-    out = ""
-    for p in parts:
-        out += f"[{p}]" if isinstance(p, int) else (f".{p}" if out else p)
-    return out
-
-
 # --- entry points --------------------------------------------------------------------------------
 
 
-def load_scenario(path: str | Path, overrides: Iterable[str | tuple[str, Any]] = ()) -> Scenario:
+def _read_scenario_file(path: str | Path) -> str:
+    file = str(path)
+    try:
+        handle, size = open_regular(path)
+    except FileNotFoundError:
+        raise ScenarioError(file, "", "no such file") from None
+    except NotARegularFile as exc:
+        raise ScenarioError(file, "", f"{exc}, expected a YAML file") from None
+    except (OSError, ValueError) as exc:
+        why = getattr(exc, "strerror", None) or "not a file name"
+        raise ScenarioError(file, "", f"cannot read: {why}") from None
+    with handle:
+        if size > SCENARIO_BYTES:
+            raise ScenarioError(file, "", f"is larger than {SCENARIO_BYTES:,} bytes, the limit "
+                                "of a scenario file")
+        try:
+            data = handle.read(SCENARIO_BYTES + 1)
+        except OSError as exc:
+            raise ScenarioError(file, "", f"cannot read: {exc.strerror}") from None
+    if len(data) > SCENARIO_BYTES:
+        raise ScenarioError(file, "", f"is larger than {SCENARIO_BYTES:,} bytes, the limit of a "
+                            "scenario file")
+    try:
+        return data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise ScenarioError(file, "", "is not UTF-8 text") from None
+
+
+def load_scenario(path: str | Path, overrides: Iterable[str | tuple[str, Any]] = (), *,
+                  limits: Limits | None = None, horizon: float | None = None) -> Scenario:
     """Read, override and validate the scenario in ``path``.
 
     ``overrides`` are ``"PATH=VALUE"`` strings (as given to ``--set``) or ``(path, value)``
-    pairs, applied in order to the YAML document before validation.
+    pairs, applied in order to the YAML document before validation. ``limits``: the bounds on
+    what it may ask for (:class:`fluid.scenario.Limits`; the defaults when None). ``horizon``:
+    the horizon it will be run over when not its own ``run.horizon`` (time units; profile and
+    schedule steps are counted and their coverage checked over it).
     """
-    file = str(path)
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ScenarioError(file, "", "no such file") from None
-    except IsADirectoryError:
-        raise ScenarioError(file, "", "is a directory, expected a YAML file") from None
-    except UnicodeDecodeError:
-        raise ScenarioError(file, "", "is not UTF-8 text") from None
-    except OSError as exc:
-        raise ScenarioError(file, "", f"cannot read: {exc.strerror}") from None
-    return load_scenario_text(
-        text, file=file, overrides=overrides, base_dir=str(Path(path).resolve().parent)
-    )
+    text = _read_scenario_file(path)
+    return load_scenario_text(text, file=str(path), overrides=overrides,
+                              base_dir=str(Path(path).resolve().parent), limits=limits,
+                              horizon=horizon)
 
 
 def load_scenario_text(
@@ -202,25 +112,35 @@ def load_scenario_text(
     file: str = "<string>",
     overrides: Iterable[str | tuple[str, Any]] = (),
     base_dir: str | None = None,
+    *,
+    limits: Limits | None = None,
+    horizon: float | None = None,
 ) -> Scenario:
     """Like :func:`load_scenario` for YAML given as a string (files named in it, such as traces,
-    are read relative to ``base_dir``, default the working directory)."""
+    are read relative to ``base_dir``, default the working directory, and must lie inside it
+    unless ``limits.outside_files``)."""
     doc = _parse_yaml(text, file)
     if not isinstance(doc, dict):
         raise ScenarioError(file, "", "the document must be a mapping of the keys " + ", ".join(TOP_KEYS))
     for item in overrides:
         path, value = parse_override(item) if isinstance(item, str) else item
         apply_override(doc, path, value, file=file)
-    return scenario_from_document(doc, file=file, base_dir=base_dir)
+    scenario = scenario_from_document(doc, file=file, base_dir=base_dir, limits=limits,
+                                      horizon=horizon)
+    for field, message in short_plans(scenario, horizon or scenario.run.horizon):
+        warnings.warn(f"{printable(file)}: {field}: {message}", ScenarioWarning, stacklevel=2)
+    return scenario
 
 
 def scenario_from_document(
-    doc: Mapping, *, file: str = "<string>", base_dir: str | None = None
+    doc: Mapping, *, file: str = "<string>", base_dir: str | None = None,
+    limits: Limits | None = None, horizon: float | None = None,
 ) -> Scenario:
-    """Validate a YAML document (already parsed) and build the frozen :class:`Scenario`."""
+    """Validate a YAML document (already parsed) and build the frozen :class:`Scenario`
+    (``limits``, ``horizon``: as for :func:`load_scenario`)."""
     try:
-        scenario = _build(doc, file, base_dir)
-        check_structure(scenario)
+        scenario = _build(doc, file, base_dir, limits or Limits(), horizon)
+        check_structure(scenario, horizon)
     except FieldError as exc:
         raise exc.to_scenario_error(file) from None
     _warn_uncovered_pools(scenario)
@@ -231,14 +151,16 @@ def with_changes(scenario: Scenario, changes: Mapping[str, Any] | None = None, *
     """Return a validated copy of ``scenario`` with ``changes`` applied to its document.
 
     ``changes`` maps dotted paths to Python values, e.g. ``{"pools.front_desk": 12,
-    "sources.calls.rate": 3.5}`` (the same paths as ``--set``). Keyword arguments are also
-    accepted as top-level paths. Raises :class:`fluid.errors.ScenarioError` if the result is not
-    a valid scenario. A variant is thus exactly what the same YAML edited by hand would give.
+    "sources.calls.rate": 3.5}`` (the same paths as ``--set``, ``+`` included). Keyword
+    arguments are also accepted as top-level paths. Raises :class:`fluid.errors.ScenarioError`
+    if the result is not a valid scenario. A variant is thus exactly what the same YAML edited
+    by hand would give; it keeps the scenario's limits.
     """
     doc = scenario.to_document()
     for path, value in {**(changes or {}), **kw}.items():
         apply_override(doc, path, value, file=scenario.file)
-    return scenario_from_document(doc, file=scenario.file, base_dir=scenario.base_dir)
+    return scenario_from_document(doc, file=scenario.file, base_dir=scenario.base_dir,
+                                  limits=scenario.limits)
 
 
 def _warn_uncovered_pools(scenario: Scenario) -> None:
@@ -258,6 +180,9 @@ def _warn_uncovered_pools(scenario: Scenario) -> None:
 
 # --- building ------------------------------------------------------------------------------------
 
+#: The longest scenario name and time unit (characters).
+NAME_CHARS, UNIT_CHARS = 200, 40
+
 
 def _mapping(value: Any, path: str, *, allow_none: bool = True) -> dict:
     if value is None and allow_none:
@@ -275,31 +200,6 @@ def _known_keys(spec: dict, allowed: Iterable[str], path: str) -> None:
             raise FieldError(where, f"unknown key (expected one of: {', '.join(allowed)})")
 
 
-def _real(value: Any, path: str, *, low: float = 0.0, strict: bool = False) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise FieldError(path, "must be a finite number", value)
-    if value < low or (strict and value == low):
-        raise FieldError(path, f"must be {'>' if strict else '>='} {low:g}", value)
-    return float(value)
-
-
-def _whole(value: Any, path: str, *, low: int = 0) -> int:
-    if isinstance(value, bool) or not isinstance(value, int):
-        if isinstance(value, float) and value.is_integer():
-            value = int(value)
-        else:
-            raise FieldError(path, "must be a whole number", value)
-    if value < low:
-        raise FieldError(path, f"must be >= {low}", value)
-    return value
-
-
-def _name(value: Any, path: str) -> str:
-    if not isinstance(value, str) or not NAME_PATTERN.match(value):
-        raise FieldError(path, "a name must match [a-z][a-z0-9_]*", value)
-    return value
-
-
 def _names(value: Any, path: str) -> tuple[str, ...]:
     if not isinstance(value, list) or not value:
         raise FieldError(path, "must be a non-empty list of names", value)
@@ -309,18 +209,36 @@ def _names(value: Any, path: str) -> tuple[str, ...]:
     return out
 
 
-def _build(doc: Mapping, file: str, base_dir: str | None) -> Scenario:
+def _text(value: Any, path: str, what: str, longest: int) -> str:
+    """A one-line text (surrounding white space, such as the newline a YAML block leaves, is
+    dropped) of at most ``longest`` characters."""
+    if not isinstance(value, str) or not value.strip():
+        raise FieldError(path, f"must be a non-empty text{what}", value)
+    text = value.strip()
+    if len(text) > longest or not text.isprintable():
+        raise FieldError(path, f"must be one line of at most {longest} characters", value)
+    return text
+
+
+def _steps(step: float, path: str, horizon: float, limits: Limits) -> None:
+    """Refuse a step that cuts the horizon into more intervals than the limit."""
+    count = horizon / step
+    if count > limits.intervals:
+        raise FieldError(path, f"cuts the horizon {horizon:g} into {count:.3g} intervals, more "
+                         f"than the limit of {limits.intervals:,} (raise it with "
+                         f"{limits.flag('intervals')})", step)
+
+
+def _build(doc: Mapping, file: str, base_dir: str | None, limits: Limits,
+           horizon: float | None) -> Scenario:
     _known_keys(doc, TOP_KEYS, "")
     for required in ("sources", "places", "transitions"):
         if required not in doc:
             raise FieldError(required, "is required")
-    name = doc.get("name", Path(file).stem)
-    if not isinstance(name, str) or not name.strip():
-        raise FieldError("name", "must be a non-empty text", name)
-    time_unit = doc.get("time_unit", "min")
-    if not isinstance(time_unit, str) or not time_unit.strip():
-        raise FieldError("time_unit", "must be a non-empty text such as min or h", time_unit)
+    name = _text(doc.get("name", Path(file).stem), "name", "", NAME_CHARS)
+    time_unit = _text(doc.get("time_unit", "min"), "time_unit", " such as min or h", UNIT_CHARS)
     base = Path(base_dir) if base_dir else Path.cwd()
+    folder = DataFolder(base, max_values=limits.file_values, outside_files=limits.outside_files)
 
     seen: dict[str, str] = {}
 
@@ -349,15 +267,23 @@ def _build(doc: Mapping, file: str, base_dir: str | None) -> Scenario:
         raise FieldError("transitions", "needs at least one transition")
 
     run = _build_run(_mapping(doc.get("run"), "run"))
-    pools = {n: _build_pool(n, spec) for n, spec in pools_doc.items()}
-    places = {n: _build_place(n, _mapping(spec, f"places.{n}"), base) for n, spec in places_doc.items()}
-    sources = {n: _build_source(n, _mapping(spec, f"sources.{n}", allow_none=False), base)
+    span = run.horizon if horizon is None or not horizon > 0 else horizon
+    pools = {n: _build_pool(n, spec, span, limits) for n, spec in pools_doc.items()}
+    places = {n: _build_place(n, _mapping(spec, f"places.{n}"), folder)
+              for n, spec in places_doc.items()}
+    sources = {n: _build_source(n, _mapping(spec, f"sources.{n}", allow_none=False), folder,
+                                span, limits)
                for n, spec in sources_doc.items()}
     transitions = {n: _build_transition(n, spec) for n, spec in transitions_doc.items()}
     targets = _build_targets(_mapping(doc.get("targets"), "targets"))
+    try:
+        document = json.dumps(doc)
+    except (TypeError, ValueError):  # a date, a set, ... left where no reader looked
+        raise FieldError("", "holds a value that is not a number, a text, a list or a "
+                         "mapping") from None
     return Scenario(
-        name=name.strip(),
-        time_unit=time_unit.strip(),
+        name=name,
+        time_unit=time_unit,
         run=run,
         sources=FrozenMap(sources),
         pools=FrozenMap(pools),
@@ -365,8 +291,9 @@ def _build(doc: Mapping, file: str, base_dir: str | None) -> Scenario:
         transitions=FrozenMap(transitions),
         targets=targets,
         file=file,
-        document=json.dumps(doc),
+        document=document,
         base_dir=str(base),
+        limits=limits,
     )
 
 
@@ -378,11 +305,11 @@ def _build_run(spec: dict) -> RunSettings:
     if warmup >= horizon:
         raise FieldError("run.warmup", f"must be below the horizon ({horizon:g})", warmup)
     reps = _whole(spec.get("replications", default.replications), "run.replications", low=1)
-    seed = _whole(spec.get("seed", default.seed), "run.seed")
+    seed = _whole(spec.get("seed", default.seed), "run.seed", high=LARGEST_SEED)
     return RunSettings(horizon=horizon, warmup=warmup, replications=reps, seed=seed)
 
 
-def _build_pool(name: str, spec: Any) -> Pool:
+def _build_pool(name: str, spec: Any, horizon: float, limits: Limits) -> Pool:
     path = f"pools.{name}"
     if not isinstance(spec, dict):
         return Pool(name=name, staff=_whole(spec, path))
@@ -395,6 +322,7 @@ def _build_pool(name: str, spec: Any) -> Pool:
         if "step" not in sched or "staff" not in sched:
             raise FieldError(f"{path}.schedule", "needs step and staff")
         step = _real(sched["step"], f"{path}.schedule.step", strict=True)
+        _steps(step, f"{path}.schedule.step", horizon, limits)
         staff_list = sched["staff"]
         if not isinstance(staff_list, list) or not staff_list:
             raise FieldError(f"{path}.schedule.staff", "must be a non-empty list", staff_list)
@@ -410,12 +338,13 @@ def _build_pool(name: str, spec: Any) -> Pool:
     return Pool(name=name, staff=staff, priority=priority, schedule=schedule)
 
 
-def _build_place(name: str, spec: dict, base: Path) -> Place:
+def _build_place(name: str, spec: dict, folder: DataFolder) -> Place:
     path = f"places.{name}"
     _known_keys(spec, ("hold", "route", "priority", "patience", "abandon_to"), path)
-    hold = parse_distribution(spec["hold"], f"{path}.hold", base) if "hold" in spec else None
+    hold = parse_distribution(spec["hold"], f"{path}.hold", folder) if "hold" in spec else None
     patience = (
-        parse_distribution(spec["patience"], f"{path}.patience", base) if "patience" in spec else None
+        parse_distribution(spec["patience"], f"{path}.patience", folder)
+        if "patience" in spec else None
     )
     route = None
     if "route" in spec:
@@ -440,7 +369,8 @@ def _build_place(name: str, spec: dict, base: Path) -> Place:
                  abandon_to=abandon_to)
 
 
-def _build_source(name: str, spec: dict, base: Path) -> Source:
+def _build_source(name: str, spec: dict, folder: DataFolder, horizon: float,
+                  limits: Limits) -> Source:
     path = f"sources.{name}"
     _known_keys(spec, ("rate", "profile", "trace", "into"), path)
     if "into" not in spec:
@@ -457,6 +387,7 @@ def _build_source(name: str, spec: dict, base: Path) -> Source:
         if "step" not in prof or "rates" not in prof:
             raise FieldError(f"{path}.profile", "needs step and rates")
         step = _real(prof["step"], f"{path}.profile.step", strict=True)
+        _steps(step, f"{path}.profile.step", horizon, limits)
         rates = prof["rates"]
         if not isinstance(rates, list) or not rates:
             raise FieldError(f"{path}.profile.rates", "must be a non-empty list", rates)
@@ -464,28 +395,22 @@ def _build_source(name: str, spec: dict, base: Path) -> Source:
         if not any(r > 0 for r in rates_t):
             raise FieldError(f"{path}.profile.rates", "needs at least one positive rate")
         return Source(name, into, ProfileArrivals(step=step, rates=rates_t))
-    return Source(name, into, TraceArrivals(_read_trace(spec["trace"], f"{path}.trace", base)))
+    return Source(name, into, TraceArrivals(_read_trace(spec["trace"], f"{path}.trace", folder)))
 
 
-def _read_trace(value: Any, path: str, base: Path) -> tuple[float, ...]:
-    if not isinstance(value, str) or not value:
-        raise FieldError(path, "must be a file name", value)
-    file = base / value
-    try:
-        words = file.read_text(encoding="utf-8").split()
-    except (OSError, UnicodeDecodeError) as exc:
-        raise FieldError(path, f"cannot read {file}: {getattr(exc, 'strerror', exc)}", value) from None
-    times = []
-    for i, word in enumerate(words):
-        try:
-            t = float(word.rstrip(","))
-        except ValueError:
-            raise FieldError(path, f"line {i + 1} of {value} is not a time", word) from None
-        if not math.isfinite(t) or t < 0:
-            raise FieldError(path, f"line {i + 1} of {value} must be a time >= 0", word)
-        if times and t < times[-1]:
-            raise FieldError(path, f"line {i + 1} of {value} is earlier than the line before", word)
-        times.append(t)
+def _read_trace(value: Any, path: str, folder: DataFolder) -> tuple[float, ...]:
+    """The arrival times of a trace file (one or more per line, each >= 0, in order, each at
+    most :data:`fluid.fields.LARGEST_NUMBER`); messages name the line, never quote it."""
+    times, lines = folder.read_numbers(value, path, strip=",")
+    previous = 0.0
+    for i, t in enumerate(times):
+        if not (LARGEST_NUMBER >= t >= 0):  # (also refuses nan and inf)
+            raise FieldError(path, f"line {lines[i]} of {value} must be a time >= 0 and at "
+                             f"most {LARGEST_NUMBER:g}")
+        if t < previous:
+            before = "line before" if lines[i - 1] < lines[i] else "time before it on its line"
+            raise FieldError(path, f"line {lines[i]} of {value} is earlier than the {before}")
+        previous = t
     if not times:
         raise FieldError(path, f"{value} holds no arrival times", value)
     return tuple(times)

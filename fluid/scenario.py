@@ -32,7 +32,13 @@ __all__ = [
     "ServiceTarget",
     "Targets",
     "Scenario",
+    "Limits",
+    "LIMIT_FLAGS",
+    "LARGEST_SEED",
 ]
+
+#: The largest run seed (numpy's SeedSequence takes any whole number; 128 bits is plenty).
+LARGEST_SEED = 2**128 - 1
 
 
 class FrozenMap(Mapping):
@@ -76,6 +82,36 @@ class RunSettings:
     warmup: float = 0.0
     replications: int = 10
     seed: int = 0
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Bounds on the work one input may ask for, so that any input ends fast (the README's
+    "Limits"). Each can be raised: ``fluid.load_scenario(..., limits=Limits(...))``,
+    ``desim.resolve_settings(..., limits=...)``, or the command-line flag in
+    :data:`LIMIT_FLAGS`.
+
+    ``file_values``: numbers read from one trace or empirical file; ``intervals``: intervals of
+    one run (horizon / step) for per-interval tables and for profile and schedule steps;
+    ``replications``: replications of one run; ``arrivals``: expected arrivals over every run a
+    command makes (rate × horizon × replications, summed), refused beyond it before anything
+    runs; ``outside_files``: whether files named in a scenario may lie outside its folder."""
+
+    file_values: int = 1_000_000
+    intervals: int = 10_000
+    replications: int = 10_000
+    arrivals: float = 1e9
+    outside_files: bool = False
+
+    def flag(self, name: str) -> str:
+        """The command-line flag that sets the limit ``name`` (a field)."""
+        return LIMIT_FLAGS[name]
+
+
+#: The command-line flag of each field of :class:`Limits`.
+LIMIT_FLAGS = {"file_values": "--max-file-values", "intervals": "--max-intervals",
+               "replications": "--max-replications", "arrivals": "--max-arrivals",
+               "outside_files": "--allow-outside-files"}
 
 
 @dataclass(frozen=True)
@@ -186,6 +222,7 @@ class Scenario:
     file: str = "<string>"
     document: str = field(default="{}", repr=False, compare=False)
     base_dir: str | None = field(default=None, repr=False, compare=False)
+    limits: Limits = field(default=Limits(), repr=False, compare=False)
 
     # --- structure ------------------------------------------------------------------------------
 

@@ -9,17 +9,53 @@ from __future__ import annotations
 from .errors import FieldError
 from .scenario import Scenario
 
-__all__ = ["check_structure"]
+__all__ = ["check_structure", "short_plans", "ZERO_TIME"]
+
+#: A holding time or patience below ZERO_TIME × horizon counts as zero for the zero-time-circuit
+#: check: jobs circling through such places would make a billion events per job over the run,
+#: or stop the simulated clock once now + hold rounds to now.
+ZERO_TIME = 1e-9
 
 
-def check_structure(s: Scenario) -> None:
-    """Raise FieldError on the first structural problem found in ``s``."""
+def check_structure(s: Scenario, horizon: float | None = None) -> None:
+    """Raise FieldError on the first structural problem found in ``s``. ``horizon``: the
+    horizon it will be run over (default ``s.run.horizon``), which sets the tolerance of the
+    zero-time-circuit check."""
     _check_arcs(s)
     _check_sources(s)
     _check_outputs(s)
     _check_abandon_to(s)
     _check_targets(s)
-    _check_zero_time_circuits(s)
+    _check_zero_time_circuits(s, horizon if horizon and horizon > 0 else s.run.horizon)
+
+
+def short_plans(s: Scenario, horizon: float) -> list[tuple[str, str]]:
+    """``(field, message)`` for every arrival profile and staffing schedule that ends before
+    ``horizon`` (time units), saying which value holds after its end."""
+    unit = s.time_unit
+    out = []
+    for src in s.sources.values():
+        a = src.arrivals
+        if a.kind == "profile" and len(a.rates) * a.step < horizon:
+            end = len(a.rates) * a.step
+            out.append((f"sources.{src.name}.profile",
+                        f"the profile ({_count(len(a.rates), 'rate')} of step {a.step:g}) ends "
+                        f"at {end:g} {unit}, before the horizon {horizon:g}: the last rate "
+                        f"({a.rates[-1]:g} per {unit}) holds from {end:g} on"))
+    for pool in s.pools.values():
+        sched = pool.schedule
+        if sched is not None and len(sched.staff) * sched.step < horizon:
+            end = len(sched.staff) * sched.step
+            out.append((f"pools.{pool.name}.schedule",
+                        f"the schedule ({_count(len(sched.staff), 'staff level')} of step "
+                        f"{sched.step:g}) ends at {end:g} {unit}, before the horizon "
+                        f"{horizon:g}: the last level ({_count(sched.staff[-1], 'agent')}) "
+                        f"holds from {end:g} on"))
+    return out
+
+
+def _count(n: int, word: str) -> str:
+    return f"{n} {word}{'' if n == 1 else 's'}"
 
 
 def _check_arcs(s: Scenario) -> None:
@@ -127,21 +163,20 @@ def _check_targets(s: Scenario) -> None:
             )
 
 
-def _zero_time(s: Scenario, place: str) -> bool:
-    return s.places[place].hold_mean == 0
-
-
-def _check_zero_time_circuits(s: Scenario) -> None:
-    """A job could circle through places with no holding time forever at one instant."""
-    graph: dict[str, set[str]] = {p: set() for p in s.places if _zero_time(s, p)}
+def _check_zero_time_circuits(s: Scenario, horizon: float) -> None:
+    """A job could circle through places with no holding time forever at one instant (or, with
+    holds below ZERO_TIME × horizon, a billion times over the run)."""
+    tolerance = ZERO_TIME * horizon
+    graph: dict[str, set[str]] = {p: set() for p, place in s.places.items()
+                                  if place.hold_mean < tolerance}
     for t in s.transitions:
         a, b = s.job_input(t), s.job_output(t)
         if a in graph and b in graph:
             graph[a].add(b)
     for p in s.places.values():
-        # a patience of exactly zero moves the job on at once, like a hold of zero
+        # a patience of (near) zero moves the job on at once, like a hold of zero
         if p.abandon_to and p.name in graph and p.abandon_to in graph:
-            if p.patience is not None and p.patience.mean == 0:
+            if p.patience is not None and p.patience.mean < tolerance:
                 graph[p.name].add(p.abandon_to)
     state: dict[str, int] = {}
     for start in graph:
@@ -162,7 +197,9 @@ def _check_zero_time_circuits(s: Scenario) -> None:
                 raise FieldError(
                     f"places.{nxt}",
                     "zero-time circuit: jobs could cycle " + " -> ".join(cycle)
-                    + " without any holding time",
+                    + " without any holding time (holds and patience below "
+                    f"{ZERO_TIME:g} × the horizon {horizon:g} = {tolerance:.3g} "
+                    f"{s.time_unit} count as none)",
                 )
             elif not state.get(nxt):
                 state[nxt] = 1

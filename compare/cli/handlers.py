@@ -14,7 +14,7 @@ import math
 from ..present import text as render
 from ..present.text import CAUTION
 from .outcome import InputError, Outcome, finish
-from .run_options import load, settings_from_flags, simulation
+from .run_options import checked_settings, load, simulation
 
 __all__ = ["inspect", "fluid", "simulate", "compare", "station", "scale", "phases", "staff"]
 
@@ -29,21 +29,49 @@ def inspect(args) -> Outcome:
                    json=render.inspect_json(s, invariants, uncovered))
 
 
+def _check_step(s, dt: float) -> None:
+    """Refuse a counter grid step that gives fewer than two steps or more points than the
+    counters take over the scenario's horizon."""
+    from fluid.counters import MAX_POINTS
+
+    cmd, horizon = "fluidgap fluid", s.run.horizon
+    if dt <= 0:
+        raise InputError(f"{cmd}: --dt must be > 0 (got {dt:g})")
+    if dt > horizon / 2:
+        raise InputError(f"{cmd}: --dt must be at most half the horizon {horizon:g} "
+                         f"(got {dt:g})")
+    if horizon / dt + 1 > MAX_POINTS:
+        raise InputError(f"{cmd}: --dt {dt:g} cuts the horizon {horizon:g} into "
+                         f"{horizon / dt:.3g} steps, more than the {MAX_POINTS:,} grid points "
+                         "the counters take: give a larger step")
+
+
 def fluid(args) -> Outcome:
     from fluid.analysis import throughput
+    from fluid.structure import lp_obstacles
 
     s = load(args)
-    if args.dt is not None and args.dt <= 0:
-        raise InputError(f"fluidgap fluid: --dt must be > 0 (got {args.dt:g})")
+    if args.dt is not None:
+        _check_step(s, args.dt)
+    if args.method == "lp" and lp_obstacles(s):
+        raise InputError(f"fluidgap fluid: --method lp does not apply to this net (it has "
+                         f"{', '.join(lp_obstacles(s))}): use --method counters or auto")
     result = throughput(s, method=args.method, dt=args.dt, cross_check=args.cross_check)
     return finish(args, render.fluid_text(s, result), result.to_dict())
+
+
+def _arrivals(s):
+    """Expected arrivals of one run of ``s`` over a horizon (for the --max-arrivals check)."""
+    from desim.settings import expected_arrivals
+
+    return lambda horizon: expected_arrivals(s, horizon)
 
 
 def simulate(args) -> Outcome:
     from desim import replicate
 
     s = load(args)
-    with simulation(args, s.run) as (settings, progress):
+    with simulation(args, s.run, arrivals=_arrivals(s)) as (settings, progress):
         result = replicate(s, settings=settings, progress=progress)
     return finish(args, render.simulation_text(s, result), result.to_json())
 
@@ -53,7 +81,7 @@ def compare(args) -> Outcome:
     from ..study.comparison import compare as run_comparison
 
     s = load(args)
-    with simulation(args, s.run) as (settings, progress):
+    with simulation(args, s.run, arrivals=_arrivals(s)) as (settings, progress):
         result = run_comparison(s, settings, progress=progress,
                                 record_waits=args.report is not None)
     return finish(args, render.comparison_text(s, result), result.to_json(),
@@ -67,9 +95,14 @@ def station(args) -> Outcome:
     from ..present.reports import station_report
     from ..study.station import station_check, station_run
 
+    from fluid.fields import LARGEST_WHOLE
+
     cmd = "fluidgap station"
     if args.servers < 1:
         raise InputError(f"{cmd}: --servers must be >= 1 (got {args.servers})")
+    if args.servers > LARGEST_WHOLE:
+        raise InputError(f"{cmd}: --servers must be at most {LARGEST_WHOLE:,} "
+                         f"(got {args.servers:.3g})")
     for flag, value in (("--rate", args.rate), ("--mean-hold", args.mean_hold)):
         if not value > 0:
             raise InputError(f"{cmd}: {flag} must be > 0 (got {value:g})")
@@ -87,7 +120,8 @@ def station(args) -> Outcome:
     # see that the checks do fail when the simulation is fed something else
     overrides = dict(parse_override(o) for o in args.overrides) or None
     try:
-        with simulation(args, station_run(args.rate, args.horizon)) as (settings, progress):
+        with simulation(args, station_run(args.rate, args.horizon),
+                        arrivals=lambda horizon: args.rate * horizon) as (settings, progress):
             result = station_check(
                 args.servers, args.rate, args.mean_hold, patience_mean=args.patience_mean,
                 hold_cv=args.hold_cv, class_rates=args.class_rates, within=args.within,
@@ -108,44 +142,58 @@ def scale(args) -> Outcome:
     s = load(args)
     if not args.factors or any(not k > 0 for k in args.factors):
         raise InputError("fluidgap scale: --factors must be positive numbers")
-    with simulation(args, s.run, runs_per_replication=len(args.factors)) as (settings, progress):
+    with simulation(args, s.run, runs_per_replication=len(args.factors), arrivals=_arrivals(s),
+                    volume=sum(args.factors)) as (settings, progress):
         result = scale_study(s, args.factors, settings, progress=progress)
     return finish(args, render.scale_text(result), result.to_json(),
                   report=lambda d: scale_report(d, result, caution=CAUTION,
                                                 summary=render.scale_summary(result)))
 
 
+def _float(text: str) -> float:
+    """``text`` as a float, nan when it is none."""
+    try:
+        return float(text)
+    except ValueError:
+        return math.nan
+
+
 def _parse_ranges(items, scenario) -> dict[str, tuple[float, float]]:
+    from fluid.errors import short_repr
+    from fluid.fields import LARGEST_WHOLE
+
     out = {}
     for item in items or []:
         name, sep, span = item.partition("=")
         lo, sep2, hi = span.partition(":")
-        try:
-            lo_f, hi_f = float(lo), float(hi)
-        except ValueError:
-            raise InputError(f"fluidgap phases: --range expects POOL=LO:HI (got {item!r})") from None
+        lo_f, hi_f = _float(lo), _float(hi)
+        if not (math.isfinite(lo_f) and math.isfinite(hi_f)):
+            raise InputError("fluidgap phases: --range expects POOL=LO:HI with finite numbers "
+                             f"(got {short_repr(item)})")
         if not (sep and sep2) or name not in scenario.pools:
             raise InputError(f"fluidgap phases: --range expects POOL=LO:HI with a pool of the "
-                             f"scenario (got {item!r})")
-        if not 0 <= lo_f < hi_f:
-            raise InputError(f"fluidgap phases: --range {name}: need 0 <= LO < HI (got {span})")
+                             f"scenario (got {short_repr(item)})")
+        if not 0 <= lo_f < hi_f <= LARGEST_WHOLE:
+            raise InputError(f"fluidgap phases: --range {name}: need 0 <= LO < HI <= "
+                             f"{LARGEST_WHOLE:,} (got {short_repr(span)})")
         out[name] = (lo_f, hi_f)
     return out
 
 
 def _parse_costs(items, scenario) -> dict[str, float] | None:
+    from fluid.errors import short_repr
+    from fluid.fields import LARGEST_NUMBER
+
     if not items:
         return None
     out = {}
     for item in items:
         name, sep, value = item.partition("=")
-        try:
-            cost = float(value)
-        except ValueError:
-            cost = math.nan
-        if not sep or name not in scenario.pools or not cost >= 0:
+        cost = _float(value)
+        if not sep or name not in scenario.pools or not LARGEST_NUMBER >= cost >= 0:
             raise InputError("fluidgap staff: --cost expects POOL=C with a pool of the scenario "
-                             f"and a cost >= 0 (got {item!r})")
+                             f"and a cost >= 0 and at most {LARGEST_NUMBER:g} "
+                             f"(got {short_repr(item)})")
         out[name] = cost
     return out
 
@@ -171,11 +219,13 @@ def phases(args) -> Outcome:
         raise InputError(f"fluidgap phases: --of {args.of!r} is not a transition of the scenario")
     ranges = _parse_ranges(args.range, s)
     if args.simulate:
-        settings_from_flags(args, s.run)  # bad flags stop before the diagram is drawn
+        # bad flags (or a run too long) stop before the diagram is drawn
+        checked_settings(args, s.run, _arrivals(s), 49)
     diagram = phase_diagram(s, tuple(args.axes), of=args.of, ranges=ranges or None)
     overlay = None
     if args.simulate:
-        with simulation(args, s.run, runs_per_replication=49) as (settings, progress):
+        with simulation(args, s.run, runs_per_replication=49,
+                        arrivals=_arrivals(s)) as (settings, progress):
             overlay = phase_overlay(s, diagram, settings, progress=progress)
     doc = diagram.to_json()
     if overlay is not None:
@@ -196,8 +246,8 @@ def staff(args) -> Outcome:
 
     s = load(args)
     costs = _parse_costs(args.cost, s)
-    with simulation(args, s.run, runs_per_replication=10,
-                    quiet=args.fluid_only) as (settings, progress):
+    with simulation(args, s.run, runs_per_replication=10, quiet=args.fluid_only,
+                    arrivals=None if args.fluid_only else _arrivals(s)) as (settings, progress):
         result = staff_search(s, settings, costs=costs, progress=progress,
                               fluid_only=args.fluid_only)
     doc = result.to_json()

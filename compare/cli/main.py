@@ -15,8 +15,9 @@ import traceback
 import warnings
 from typing import Any, Sequence
 
-from desim import DaskError, StoreError
-from fluid.errors import ScenarioError
+from desim import DaskError, SettingsError, StoreError
+from desim.engine import ClockStopped
+from fluid.errors import ScenarioError, printable
 from fluid.json_values import json_ready
 
 from .destinations import check_destinations
@@ -52,6 +53,16 @@ def _emit_json(doc: Any) -> None:
     sys.stdout.write("\n")
 
 
+#: The longest line printed for an error or a warning (characters).
+LINE_CHARS = 2000
+
+
+def _say(text: str) -> None:
+    """One line on stderr, whatever ``text`` holds (newlines and control characters are
+    written as escapes, a very long text is cut)."""
+    print(printable(text, LINE_CHARS), file=sys.stderr)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``fluidgap`` console script."""
     parser = build_parser()
@@ -67,22 +78,27 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def _main(parser, argv) -> int:
+    command = "fluidgap"
     try:
         args = parser.parse_args(argv)
+        command = f"fluidgap {args.command}"
         check_destinations(args)  # every place it will write, before it computes anything
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             outcome = args.handler(args)
         for w in caught:
             if not issubclass(w.category, (DeprecationWarning, PendingDeprecationWarning)):
-                print(f"warning: {w.message}", file=sys.stderr)
+                _say(f"warning: {w.message}")
         if args.json:
             _emit_json(outcome.json)
         else:
             print(outcome.text)
         return outcome.exit_code
-    except (ScenarioError, UsageError, InputError, StoreError, DaskError) as exc:
-        print(str(exc), file=sys.stderr)
+    except (ScenarioError, UsageError, InputError, StoreError, DaskError, ClockStopped) as exc:
+        _say(str(exc))
+        return 2
+    except SettingsError as exc:  # a setting a study derived (e.g. its interval) from the flags
+        _say(exc.for_flag(command))
         return 2
     except KeyboardInterrupt:
         print("fluidgap: interrupted", file=sys.stderr)
@@ -95,8 +111,8 @@ def _main(parser, argv) -> int:
     except Exception as exc:  # an internal error: say so plainly, full trace on request
         if os.environ.get("FLUIDGAP_DEBUG"):
             traceback.print_exc()
-        print(f"fluidgap: internal error: {type(exc).__name__}: {exc} "
-              "(set FLUIDGAP_DEBUG=1 for the traceback)", file=sys.stderr)
+        _say(f"fluidgap: internal error: {type(exc).__name__}: {exc} "
+             "(set FLUIDGAP_DEBUG=1 for the traceback)")
         return 1
 
 

@@ -4,7 +4,10 @@ from __future__ import annotations
 
 import argparse
 
+from fluid.scenario import Limits
+
 from . import handlers
+from .flag_values import at_least_one, finite, positive_limit, whole
 
 __all__ = ["UsageError", "build_parser"]
 
@@ -26,18 +29,40 @@ def _common(p: argparse.ArgumentParser, *, scenario: str = "required") -> None:
     p.add_argument("--set", dest="overrides", action="append", default=[], metavar="PATH=VALUE",
                    help="change a field before validation, e.g. pools.front_desk=12 (repeatable)")
     p.add_argument("--json", action="store_true", help="print one JSON document instead of tables")
+    _input_limits(p)
+
+
+_DEFAULT = Limits()
+
+
+def _input_limits(p: argparse.ArgumentParser) -> None:
+    """The flags that raise the limits on reading a scenario (README, "Limits")."""
+    p.add_argument("--allow-outside-files", action="store_true", dest="allow_outside_files",
+                   help="let the scenario name trace and empirical files outside its folder")
+    p.add_argument("--max-file-values", type=at_least_one, metavar="N", dest="max_file_values",
+                   help="numbers one trace or empirical file may hold "
+                   f"(default {_DEFAULT.file_values:,})")
+    p.add_argument("--max-intervals", type=at_least_one, metavar="N", dest="max_intervals",
+                   help="intervals of one run (horizon / step) for --interval, profiles and "
+                   f"schedules (default {_DEFAULT.intervals:,})")
 
 
 def _simulation_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--reps", type=int, help="replications (default: the scenario's run.replications)")
-    p.add_argument("--horizon", type=float, help="simulated time per replication, scenario time unit")
-    p.add_argument("--warmup", type=float, help="time discarded at the start of each replication")
-    p.add_argument("--seed", type=int, help="base seed (default: the scenario's run.seed)")
-    p.add_argument("--workers", type=int, default=None,
+    p.add_argument("--reps", type=whole, help="replications (default: the scenario's run.replications)")
+    p.add_argument("--horizon", type=finite, help="simulated time per replication, scenario time unit")
+    p.add_argument("--warmup", type=finite, help="time discarded at the start of each replication")
+    p.add_argument("--seed", type=whole, help="base seed (default: the scenario's run.seed)")
+    p.add_argument("--workers", type=whole, default=None,
                    help="worker processes (default: the number of cores; 1 = in this process)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
-    p.add_argument("--max-jobs", type=int, default=None, dest="max_jobs",
+    p.add_argument("--max-jobs", type=whole, default=None, dest="max_jobs",
                    help="jobs inside the net at which a replication is stopped as unstable")
+    p.add_argument("--max-replications", type=at_least_one, metavar="N",
+                   dest="max_replications",
+                   help=f"replications one run may ask for (default {_DEFAULT.replications:,})")
+    p.add_argument("--max-arrivals", type=positive_limit, metavar="N", dest="max_arrivals",
+                   help="expected arrivals over every run of the command, refused beyond it "
+                   f"before anything runs (default {_DEFAULT.arrivals:.0e})")
     p.add_argument("--dask", metavar="ADDRESS",
                    help="run replications on a Dask cluster at ADDRESS, or 'local' to start one "
                    "on this machine (127.0.0.1); needs the dask extra")
@@ -64,7 +89,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--method", choices=["auto", "lp", "counters"], default="auto",
                    help="lp: the throughput LP (no priorities, constant rates); counters: "
                    "integrate the counter equations (default: auto)")
-    p.add_argument("--dt", type=float, help="time step of the counter integration")
+    p.add_argument("--dt", type=finite, help="time step of the counter integration")
     p.add_argument("--cross-check", action="store_true", dest="cross_check",
                    help="with the LP, also integrate the counter equations and report the largest "
                    "relative difference of a rate (JSON key cross_check; null when not run)")
@@ -73,7 +98,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("simulate", help="stochastic simulation with confidence intervals")
     _common(p)
     _simulation_options(p)
-    p.add_argument("--interval", type=float, metavar="STEP",
+    p.add_argument("--interval", type=finite, metavar="STEP",
                    help="also tabulate arrivals, served, abandoned, service level and queue per "
                    "interval of this length")
     p.set_defaults(handler=handlers.simulate)
@@ -81,24 +106,24 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("compare", help="the main job: fluid against simulation, gaps and flags")
     _common(p, scenario="optional")
     _simulation_options(p)
-    p.add_argument("--interval", type=float, metavar="STEP",
+    p.add_argument("--interval", type=finite, metavar="STEP",
                    help="per-interval comparison step (default for profiles and schedules: their step)")
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
     p.set_defaults(handler=handlers.compare)
 
     p = sub.add_parser("station", help="single-station self-check against Erlang B/C/A, Cobham, Whitt")
-    p.add_argument("--servers", type=int, required=True, metavar="C", help="agents")
-    p.add_argument("--rate", type=float, required=True, metavar="L",
+    p.add_argument("--servers", type=whole, required=True, metavar="C", help="agents")
+    p.add_argument("--rate", type=finite, required=True, metavar="L",
                    help="arrival rate per time unit (the total over classes)")
-    p.add_argument("--mean-hold", type=float, required=True, metavar="H", dest="mean_hold",
+    p.add_argument("--mean-hold", type=finite, required=True, metavar="H", dest="mean_hold",
                    help="mean holding time")
-    p.add_argument("--patience-mean", type=float, metavar="P", dest="patience_mean",
+    p.add_argument("--patience-mean", type=finite, metavar="P", dest="patience_mean",
                    help="mean of exponential patience (0 = a loss system; none = callers wait)")
-    p.add_argument("--hold-cv", type=float, default=1.0, dest="hold_cv",
+    p.add_argument("--hold-cv", type=finite, default=1.0, dest="hold_cv",
                    help="coefficient of variation of the hold (1 = exponential; else lognormal)")
-    p.add_argument("--class-rates", type=float, nargs="+", metavar="L", dest="class_rates",
+    p.add_argument("--class-rates", type=finite, nargs="+", metavar="L", dest="class_rates",
                    help="priority classes, highest first (their sum must equal --rate)")
-    p.add_argument("--within", type=float, help="service-level threshold (default: mean hold / 10)")
+    p.add_argument("--within", type=finite, help="service-level threshold (default: mean hold / 10)")
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
     p.add_argument("--json", action="store_true", help="print one JSON document instead of tables")
     p.add_argument("--set", dest="overrides", action="append", default=[], metavar="PATH=VALUE",
@@ -110,7 +135,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("scale", help="fluid-limit study: the gap as volume and staff grow together")
     _common(p)
     _simulation_options(p)
-    p.add_argument("--factors", type=float, nargs="+", default=[1, 2, 4, 8, 16], metavar="K",
+    p.add_argument("--factors", type=finite, nargs="+", default=[1, 2, 4, 8, 16], metavar="K",
                    help="scale factors for arrival rates and staff (default: 1 2 4 8 16)")
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
     p.set_defaults(handler=handlers.scale)
