@@ -188,7 +188,9 @@ def build(scenario: Scenario, dt: float, t: np.ndarray, *, sources: dict, levels
     trans = list(scenario.transitions)
     distributed = tuple(p for p, pl in places.items()
                         if model.holds == "distribution" and _is_distributed(pl.hold))
-    delay = {p: (0 if p in distributed else max(1, round(pl.hold_mean / dt))
+    # a hold longer than the grid releases nothing on it: cap the delay at n steps (the terms
+    # then read zeros, as they would further back), so a huge hold costs no memory
+    delay = {p: (0 if p in distributed else min(n, max(1, round(pl.hold_mean / dt)))
                  if pl.hold_mean > 0 else 0) for p, pl in places.items()}
     delay.update({p: 0 for p in scenario.pools})
     impatient = tuple(p for p, pl in places.items() if model.patience and pl.patience is not None)

@@ -265,3 +265,15 @@ def test_without_patience_both_models_have_the_same_long_run_rates():
     b = integrate_counters(s, model=WITH_ABANDONMENT)
     for q in s.transitions:
         assert b.rates[q] == pytest.approx(a.rates[q], rel=1e-6), q
+
+
+def test_a_hold_longer_than_the_grid_costs_no_memory():
+    # a hold of 1e7 min on a 100-min day: nothing finishes on the grid; the delay is capped at
+    # the grid's length (the terms read zeros either way), so the equations stay small
+    text = station(None, 3, "1.0e+7", "{dist: exponential, mean: 2.0}", profile=(50.0, (1.0, 2.0)),
+                   horizon=100.0)
+    s = load_scenario_text(text)
+    sol = integrate_counters(s, dt=0.1, horizon=100.0)
+    assert sol.counters["close"][-1] == 0.0
+    assert sol.counters["answer"][-1] == pytest.approx(3.0)  # three agents, never back
+    assert sol.flat.pad <= len(sol.times) + 1
