@@ -12,7 +12,6 @@ one run with each other.
 from __future__ import annotations
 
 import argparse
-import os
 import subprocess
 import sys
 import tempfile
@@ -48,16 +47,26 @@ def _cli() -> list[str]:
 
 
 def _run(args: list[str]) -> tuple[float, float]:
-    """Wall seconds and peak resident MiB of one process (its exit code must be 0)."""
+    """Wall seconds and peak resident MiB of one process (its exit code must be 0). The peak is
+    the process's own high-water mark (VmHWM, polled until it exits): the rusage of a child
+    would carry over this benchmark's own peak across exec."""
     start = time.perf_counter()
     proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    _, status, usage = os.wait4(proc.pid, 0)
+    peak_kib = 0
+    status = Path(f"/proc/{proc.pid}/status")
+    while proc.poll() is None:
+        try:
+            for line in status.read_text().splitlines():
+                if line.startswith("VmHWM:"):
+                    peak_kib = max(peak_kib, int(line.split()[1]))
+        except (OSError, ValueError):
+            pass
+        time.sleep(0.005)
     wall = time.perf_counter() - start
-    proc.returncode = os.waitstatus_to_exitcode(status)
     err = proc.stderr.read().decode(errors="replace") if proc.stderr else ""
     if proc.returncode != 0:
         raise RuntimeError(f"{' '.join(args)} failed ({proc.returncode}): {err.strip()}")
-    return wall, usage.ru_maxrss / 1024.0
+    return wall, peak_kib / 1024.0
 
 
 def _step_time(scenario, model) -> tuple[float, int]:
