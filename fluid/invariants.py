@@ -2,10 +2,17 @@
 
 A P-semiflow is a non-negative integer weighting ``y`` of the places and pools with ``yᵀC = 0``,
 where ``C`` is the incidence matrix (rows: places and pools; columns: transitions, plus one column
-per source that only produces one token into its place). Along any firing sequence the weighted
+per source that only produces one token into its place, plus one column per place with patience:
+its abandonment exit, which takes a token out of that place and puts it into ``abandon_to`` when
+one is given). Along any firing sequence the weighted
 token count ``Σ y_p · m_p`` then stays at its initial value. For a pool this is how its agents
 are accounted for: ``front_desk + front_talk + front_wrap = staff`` says where every agent is.
 A pool on no semiflow can leak or multiply agents.
+
+A patience exit takes away whatever the abandoning token stands for: when a place with patience
+also holds agents (a transition leaves a job and its agent waiting there together), the agent
+leaves with the abandoning job and its pool drains. The exit's column forces weight 0 on such a
+place, so the pool drops off every semiflow; :func:`patience_leaks` names the places responsible.
 
 The semiflows of minimal support are computed with the Farkas algorithm as improved by
 Martínez and Silva (1982, "A simple and fast algorithm to obtain all invariants of a generalised
@@ -32,6 +39,9 @@ __all__ = [
     "incidence_matrix",
     "p_semiflows",
     "uncovered_pools",
+    "patience_exits",
+    "patience_leaks",
+    "leak_message",
     "pool_invariant",
     "pool_invariants",
     "InvariantWarning",
@@ -45,12 +55,23 @@ class InvariantWarning(RuntimeWarning):
     """The semiflow enumeration hit its row cap and fell back to one semiflow per node."""
 
 
-def incidence_matrix(scenario: Scenario) -> tuple[list[str], list[str], np.ndarray]:
+def patience_exits(scenario: Scenario) -> dict[str, str | None]:
+    """``{place: abandon_to or None}`` for every place with patience, in declaration order: each
+    is an implicit exit of the net (an abandoning job leaves, or moves to ``abandon_to``)."""
+    return {n: p.abandon_to for n, p in scenario.places.items() if p.patience is not None}
+
+
+def incidence_matrix(
+    scenario: Scenario, *, patience: bool = True
+) -> tuple[list[str], list[str], np.ndarray]:
     """Return ``(rows, columns, C)``: rows are pools then job places (declaration order); columns
-    are transitions then sources; ``C[i, j]`` = tokens column ``j`` puts into row ``i`` minus the
-    tokens it takes (integers)."""
+    are transitions, then sources, then (``patience``) one abandonment exit per place with
+    patience, named ``PLACE.abandon``; ``C[i, j]`` = tokens column ``j`` puts into row ``i``
+    minus the tokens it takes (integers). An exit takes 1 from its place and gives 1 to its
+    ``abandon_to``, if any."""
     rows = [*scenario.pools, *scenario.places]
-    cols = [*scenario.transitions, *scenario.sources]
+    exits = patience_exits(scenario) if patience else {}
+    cols = [*scenario.transitions, *scenario.sources, *(f"{p}.abandon" for p in exits)]
     index = {name: i for i, name in enumerate(rows)}
     c = np.zeros((len(rows), len(cols)), dtype=np.int64)
     for j, t in enumerate(scenario.transitions.values()):
@@ -60,6 +81,11 @@ def incidence_matrix(scenario: Scenario) -> tuple[list[str], list[str], np.ndarr
             c[index[p], j] += int(w)
     for k, s in enumerate(scenario.sources.values()):
         c[index[s.into], len(scenario.transitions) + k] += 1
+    first_exit = len(scenario.transitions) + len(scenario.sources)
+    for k, (p, to) in enumerate(exits.items()):
+        c[index[p], first_exit + k] -= 1
+        if to is not None:
+            c[index[to], first_exit + k] += 1
     return rows, cols, c
 
 
@@ -300,6 +326,42 @@ def uncovered_pools(scenario: Scenario) -> list[str]:
         covered = {names[i] for y in found for i, v in enumerate(y) if v}
         return [p for p in pools if p not in covered]
     return _uncovered_by_lp(pools, names, c)
+
+
+def patience_leaks(scenario: Scenario) -> dict[str, list[str]]:
+    """Pools that lose agents through patience exits: ``{pool: [place, ...]}``, pools in
+    declaration order, each with the places with patience that lie on its semiflows once the
+    exits are left out of the incidence matrix. These are the pools :func:`uncovered_pools`
+    reports only because of the exits: an abandoning job in one of those places takes agents of
+    the pool with it."""
+    uncovered = uncovered_pools(scenario)
+    exits = patience_exits(scenario)
+    if not uncovered or not exits:
+        return {}
+    names, _, c = incidence_matrix(scenario, patience=False)
+    found = _farkas(c, COVERAGE_MAX_ROWS)
+    leaks: dict[str, list[str]] = {}
+    for pool in uncovered:
+        r = names.index(pool)
+        if found is not None:
+            flows = [y for y in found if y[r]]
+        else:  # one minimal semiflow through the pool is enough to name a place
+            y = _lp_semiflow(c, r)
+            flows = [] if y is None else [_to_integers(y)]
+        on = {names[i] for y in flows for i, v in enumerate(y) if v}
+        places = [p for p in exits if p in on]
+        if places:
+            leaks[pool] = places
+    return leaks
+
+
+def leak_message(pool: str, places: list[str]) -> str:
+    """One line saying that ``pool`` loses agents through the patience of ``places``."""
+    if len(places) == 1:
+        which = f"place {places[0]} has patience and its"
+    else:
+        which = f"places {', '.join(places)} have patience and their"
+    return f"pool {pool} can lose agents: {which} abandoning jobs take the agent with them"
 
 
 def _uncovered_by_lp(pools: list[str], names: list[str], c: np.ndarray) -> list[str]:

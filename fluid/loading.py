@@ -165,17 +165,19 @@ def with_changes(scenario: Scenario, changes: Mapping[str, Any] | None = None, *
 
 def _warn_uncovered_pools(scenario: Scenario) -> None:
     try:
-        from .invariants import uncovered_pools
+        from .invariants import leak_message, patience_leaks, uncovered_pools
     except ImportError:  # the invariant module is optional while the package is being built
         return
-    for pool in uncovered_pools(scenario):
-        warnings.warn(
-            f"{scenario.file}: pools.{pool}: no conservation invariant covers this pool: its "
-            "agents can leak or multiply (check that every transition that takes an agent "
-            "gives it back)",
-            ScenarioWarning,
-            stacklevel=3,
-        )
+    uncovered = uncovered_pools(scenario)
+    leaks = patience_leaks(scenario) if uncovered else {}
+    for pool in uncovered:
+        if pool in leaks:
+            message = (f"{leak_message(pool, leaks[pool])} (no conservation invariant covers "
+                       "this pool once abandonment is counted)")
+        else:
+            message = ("no conservation invariant covers this pool: its agents can leak or "
+                       "multiply (check that every transition that takes an agent gives it back)")
+        warnings.warn(f"{scenario.file}: pools.{pool}: {message}", ScenarioWarning, stacklevel=3)
 
 
 # --- building ------------------------------------------------------------------------------------
