@@ -20,13 +20,14 @@ __all__ = ["inspect", "fluid", "simulate", "compare", "station", "scale", "phase
 
 
 def inspect(args) -> Outcome:
-    from fluid.invariants import p_semiflows, uncovered_pools
+    from fluid.invariants import p_semiflows, patience_leaks, uncovered_pools
 
     s = load(args)
     invariants = p_semiflows(s)
     uncovered = uncovered_pools(s)
-    return Outcome(text=render.inspect_text(s, invariants, uncovered),
-                   json=render.inspect_json(s, invariants, uncovered))
+    leaks = patience_leaks(s) if uncovered else {}
+    return Outcome(text=render.inspect_text(s, invariants, uncovered, leaks),
+                   json=render.inspect_json(s, invariants, uncovered, leaks))
 
 
 def _check_step(s, dt: float) -> None:

@@ -56,7 +56,10 @@ def _outflow(s: Scenario, name: str) -> str:
     return ", ".join(s.outputs_of(name)) or "-"
 
 
-def inspect_text(s: Scenario, invariants: list[dict], uncovered: list[str]) -> str:
+def inspect_text(s: Scenario, invariants: list[dict], uncovered: list[str],
+                 leaks: dict[str, list[str]] | None = None) -> str:
+    """The net's summary; ``leaks`` (from :func:`fluid.invariants.patience_leaks`) names the
+    pools that lose agents through patience exits."""
     parts = [f"{s.name}  (file {s.file}, time unit {s.time_unit})"]
     parts.append(format_table(
         ["source", "arrivals", "into"],
@@ -81,8 +84,16 @@ def inspect_text(s: Scenario, invariants: list[dict], uncovered: list[str]) -> s
         inv_lines.append("  " + " + ".join(n if w == 1 else f"{fmt(w)}*{n}" for n, w in inv.items()))
     if not invariants:
         inv_lines.append("  none")
+    exits = _patience_exits(s)
+    if exits:
+        # each is a column of the incidence matrix the invariants above come from
+        inv_lines.append("patience exits (in the invariants; an abandoning job takes along "
+                         "whatever waits with it):")
+        inv_lines += [f"  {p} -> {to or 'leaves the net'}" for p, to in exits.items()]
     if uncovered:
         inv_lines.append("pools on no invariant (agents can leak or multiply): " + ", ".join(uncovered))
+    for pool, places in (leaks or {}).items():
+        inv_lines.append("warning: " + _leak_line(pool, places))
     parts.append("\n".join(inv_lines))
     if s.targets.service or s.targets.abandonment_max is not None:
         rows = [[p, f"{fmt(t.goal * 100, 3)} % within {fmt(t.within)}"] for p, t in s.targets.service.items()]
@@ -92,7 +103,20 @@ def inspect_text(s: Scenario, invariants: list[dict], uncovered: list[str]) -> s
     return "\n\n".join(parts)
 
 
-def inspect_json(s: Scenario, invariants: list[dict], uncovered: list[str]) -> dict:
+def _patience_exits(s: Scenario) -> dict[str, str | None]:
+    """``{place: abandon_to or None}`` for the places with patience (the invariants' exits)."""
+    return {n: p.abandon_to for n, p in s.places.items() if p.patience is not None}
+
+
+def _leak_line(pool: str, places: list[str]) -> str:
+    # the words of fluid.invariants.leak_message, which the loader's warning uses too
+    from fluid.invariants import leak_message
+
+    return leak_message(pool, places)
+
+
+def inspect_json(s: Scenario, invariants: list[dict], uncovered: list[str],
+                 leaks: dict[str, list[str]] | None = None) -> dict:
     return {
         "scenario": s.name,
         "file": s.file,
@@ -115,6 +139,9 @@ def inspect_json(s: Scenario, invariants: list[dict], uncovered: list[str]) -> d
                             "ends_job": s.ends_job(n)} for n, t in s.transitions.items()},
         "invariants": [dict(inv) for inv in invariants],
         "uncovered_pools": list(uncovered),
+        "patience_exits": _patience_exits(s),
+        "agent_leaks": {pool: {"places": list(places), "message": _leak_line(pool, places)}
+                        for pool, places in (leaks or {}).items()},
         "targets": {
             "service": {p: {"within": t.within, "goal": t.goal} for p, t in s.targets.service.items()},
             "abandonment_max": s.targets.abandonment_max,

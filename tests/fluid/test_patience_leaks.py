@@ -7,6 +7,7 @@ warranted (the pool really drains). Every net is invented for these tests.
 
 from __future__ import annotations
 
+import json
 import warnings
 
 import pytest
@@ -168,3 +169,24 @@ def test_abandon_to_a_place_that_keeps_the_agent_keeps_the_pool_invariant(abando
     assert p_semiflows(s) == [agents, {"experts": 1, "consult": 1, "task": 1}]
     assert uncovered_pools(s) == [] and patience_leaks(s) == {}
     assert pool_invariant(s, "agents") == {k: float(v) for k, v in agents.items()}
+
+
+def test_inspect_shows_the_patience_exits_and_the_leak(tmp_path, capsys):
+    from compare.cli.main import main
+
+    net = tmp_path / "wait_together.yaml"
+    net.write_text(WAIT_TOGETHER)
+    warning = ("pool agents can lose agents: place expert_wait has patience and its abandoning "
+               "jobs take the agent with them")
+    assert main(["inspect", str(net)]) == 0
+    out, err = capsys.readouterr()
+    assert "patience exits (in the invariants;" in out
+    assert "  expert_wait -> leaves the net" in out
+    assert "warning: " + warning in out
+    assert warning in err  # the loader's warning, too
+    assert main(["inspect", str(net), "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["patience_exits"] == {"expert_wait": None}
+    assert doc["agent_leaks"] == {"agents": {"places": ["expert_wait"], "message": warning}}
+    assert doc["uncovered_pools"] == ["agents"]
+    assert doc["invariants"] == [{"experts": 1, "consult": 1, "task": 1}]
