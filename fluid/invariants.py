@@ -284,7 +284,9 @@ def p_semiflows(scenario: Scenario, *, max_rows: int = DEFAULT_MAX_ROWS) -> list
 
     The source columns make every place a source feeds (and everything upstream-tied to it) carry
     weight 0, so only closed token circuits, such as a pool and the places its agents visit,
-    appear. If the enumeration needs more than ``max_rows`` intermediate rows, an
+    appear. The patience exits do the same to a place with patience and no ``abandon_to`` (and
+    tie it to its ``abandon_to`` otherwise): a pool whose agents wait in such a place drops off
+    (see :func:`patience_leaks`). If the enumeration needs more than ``max_rows`` intermediate rows, an
     :class:`InvariantWarning` is issued and the answer falls back to one minimal semiflow per
     place or pool that lies on any (found by linear programming), which may not be all of them.
     """
