@@ -324,7 +324,10 @@ def station_summary(r) -> list[str]:
     return [head,
             f"exact model: {r.model}; {sim.replications} replications of [{fmt(sim.warmup)}, "
             f"{fmt(sim.horizon)}], seed {sim.seed}",
-            f"{agree} of {len(r.checks)} checks agree (formula inside the simulated 95 % interval)"]
+            f"{agree} of {len(r.checks)} checks agree (formula inside the simulated "
+            f"{fmt(100 * r.level, 4)} % interval: Bonferroni over the {len(r.checks)} checks, so "
+            f"a correct simulator passes them all in at least "
+            f"{fmt(100 * r.family_wise_level, 3)} % of runs)"]
 
 
 def station_text(r) -> str:
@@ -333,7 +336,10 @@ def station_text(r) -> str:
     rows += [[c.metric, c.where, fmt(c.formula), fmt_estimate(c.simulation), "(not judged)",
               c.source] for c in r.informative]
     parts = ["\n".join(station_summary(r)),
-             format_table(["metric", "where", "formula", "simulated [95 % interval]", "agrees",
+             format_table(["metric", "where", "formula",
+                           f"simulated [{fmt(100 * r.level, 4)} % interval"
+                           + ("; not judged: 95 %]" if r.informative else "]"),
+                           "agrees",
                            "source"], rows)]
     if r.notes:
         parts.append("\n".join(f"note: {n}" for n in r.notes))
