@@ -350,10 +350,16 @@ def scale_summary(r) -> list[str]:
     lines = [f"{r.scenario_name}: scale study, factors {', '.join(fmt(k) for k in r.factors)}; "
              f"{r.replications} replications each of [{fmt(r.warmup)}, {fmt(r.horizon)}] "
              f"{r.time_unit}, seed {r.seed} (common random numbers)"]
+    lines.append(f"staffing: {r.staffing}")
+    if r.prediction:
+        lines.append(f"predicted: {r.prediction['statement']}")
     for m, f in r.fits.items():
         if f.exponent == f.exponent:
-            lines.append(f"{m}: decays as k^{fmt(f.exponent, 3)} (standard error "
-                         f"{fmt(f.stderr, 2)}, {f.points} points; about -1/2 expected)")
+            boot = (f"bootstrap 95 % interval [{fmt(f.low, 3)}, {fmt(f.high, 3)}] over "
+                    f"{f.resamples} resamples of the replications" if f.low == f.low
+                    else "no bootstrap interval")
+            lines.append(f"{m}: decays as k^{fmt(f.exponent, 3)} (least-squares standard error "
+                         f"{fmt(f.stderr, 2)} from {f.points} points; {boot})")
         else:
             lines.append(f"{m}: no fit ({'; '.join(f.notes)})")
     return lines
