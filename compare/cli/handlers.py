@@ -145,7 +145,8 @@ def scale(args) -> Outcome:
         raise InputError("fluidgap scale: --factors must be positive numbers")
     with simulation(args, s.run, runs_per_replication=len(args.factors), arrivals=_arrivals(s),
                     volume=sum(args.factors)) as (settings, progress):
-        result = scale_study(s, args.factors, settings, progress=progress)
+        result = scale_study(s, args.factors, settings, progress=progress,
+                             staffing=getattr(args, "staffing", "linear"))
     return finish(args, render.scale_text(result), result.to_json(),
                   report=lambda d: scale_report(d, result, caution=CAUTION,
                                                 summary=render.scale_summary(result)))

@@ -137,6 +137,10 @@ def build_parser() -> argparse.ArgumentParser:
     _simulation_options(p)
     p.add_argument("--factors", type=finite, nargs="+", default=[1, 2, 4, 8, 16], metavar="K",
                    help="scale factors for arrival rates and staff (default: 1 2 4 8 16)")
+    p.add_argument("--staffing", choices=("linear", "sqrt"), default="linear",
+                   help="staff rule per factor k: linear (staff × k, loads fixed; default) or "
+                   "sqrt (staff = R_k + beta sqrt(R_k), R_k = k × offered work, beta from the "
+                   "scenario's staff)")
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
     p.set_defaults(handler=handlers.scale)
 

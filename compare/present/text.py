@@ -351,7 +351,10 @@ def station_summary(r) -> list[str]:
     return [head,
             f"exact model: {r.model}; {sim.replications} replications of [{fmt(sim.warmup)}, "
             f"{fmt(sim.horizon)}], seed {sim.seed}",
-            f"{agree} of {len(r.checks)} checks agree (formula inside the simulated 95 % interval)"]
+            f"{agree} of {len(r.checks)} checks agree (formula inside the simulated "
+            f"{fmt(100 * r.level, 4)} % interval: Bonferroni over the {len(r.checks)} checks, so "
+            f"a correct simulator passes them all in at least "
+            f"{fmt(100 * r.family_wise_level, 3)} % of runs)"]
 
 
 def station_text(r) -> str:
@@ -360,7 +363,10 @@ def station_text(r) -> str:
     rows += [[c.metric, c.where, fmt(c.formula), fmt_estimate(c.simulation), "(not judged)",
               c.source] for c in r.informative]
     parts = ["\n".join(station_summary(r)),
-             format_table(["metric", "where", "formula", "simulated [95 % interval]", "agrees",
+             format_table(["metric", "where", "formula",
+                           f"simulated [{fmt(100 * r.level, 4)} % interval"
+                           + ("; not judged: 95 %]" if r.informative else "]"),
+                           "agrees",
                            "source"], rows)]
     if r.notes:
         parts.append("\n".join(f"note: {n}" for n in r.notes))
@@ -371,10 +377,16 @@ def scale_summary(r) -> list[str]:
     lines = [f"{r.scenario_name}: scale study, factors {', '.join(fmt(k) for k in r.factors)}; "
              f"{r.replications} replications each of [{fmt(r.warmup)}, {fmt(r.horizon)}] "
              f"{r.time_unit}, seed {r.seed} (common random numbers)"]
+    lines.append(f"staffing: {r.staffing}")
+    if r.prediction:
+        lines.append(f"predicted: {r.prediction['statement']}")
     for m, f in r.fits.items():
         if f.exponent == f.exponent:
-            lines.append(f"{m}: decays as k^{fmt(f.exponent, 3)} (standard error "
-                         f"{fmt(f.stderr, 2)}, {f.points} points; about -1/2 expected)")
+            boot = (f"bootstrap 95 % interval [{fmt(f.low, 3)}, {fmt(f.high, 3)}] over "
+                    f"{f.resamples} resamples of the replications" if f.low == f.low
+                    else "no bootstrap interval")
+            lines.append(f"{m}: decays as k^{fmt(f.exponent, 3)} (least-squares standard error "
+                         f"{fmt(f.stderr, 2)} from {f.points} points; {boot})")
         else:
             lines.append(f"{m}: no fit ({'; '.join(f.notes)})")
     return lines

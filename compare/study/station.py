@@ -30,7 +30,13 @@ served or abandoning); ``mean_queue`` its ``queue``; ``service_level`` its ``ser
 (the target ``within``; abandoned jobs count against); ``p_abandon`` and ``blocking`` its
 ``abandoned``; ``busy`` the pool's ``busy``.
 
-``agrees``: the formula lies inside the simulated 95 % interval. A degenerate interval (every
+``agrees``: the formula lies inside the simulated interval at level 1 − 0.05/m, m the number of
+judged checks (Bonferroni), so that a correct simulator fails *any* of its m checks in at most
+5 % of runs (:data:`FAMILY_WISE_LEVEL`); each interval is a Student t interval over the
+per-replication values (n − 1 degrees of freedom). Judging every check at 95 % on its own would
+let a correct simulator print a failing check in up to one run in four (six checks:
+1 − 0.95⁶ ≈ 0.26). The rows shown for information only keep the 95 % interval. A degenerate
+interval (every
 replication gave the same value, e.g. nobody waited) agrees when the formula lies within
 :data:`DEGENERATE_TOLERANCE` × max(1, |formula|) of that value; an estimate with fewer than two
 replications or no data never agrees.
@@ -63,10 +69,12 @@ from ..formulas.whitt import whitt_fluid
 
 __all__ = [
     "DEGENERATE_TOLERANCE",
+    "FAMILY_WISE_LEVEL",
     "SOURCES",
     "StationCheck",
     "StationResult",
     "agrees",
+    "check_level",
     "station_check",
     "station_run",
     "station_scenario",
@@ -74,6 +82,16 @@ __all__ = [
 ]
 
 DEGENERATE_TOLERANCE = 1e-3
+#: The chance that a correct simulator passes every judged check (Bonferroni over the checks).
+FAMILY_WISE_LEVEL = 0.95
+
+
+def check_level(m: int, family_wise: float = FAMILY_WISE_LEVEL) -> float:
+    """Level of each of ``m`` checks so that all pass together with chance at least
+    ``family_wise`` when the formulas are right: 1 − (1 − family_wise)/m (Bonferroni's
+    inequality, P(any fails) <= Σ P(check i fails))."""
+    return 1 - (1 - family_wise) / max(1, int(m))
+
 #: Where each formula is published (references.md).
 SOURCES = {
     "erlang_c": "Erlang (1917); Kleinrock, Queueing Systems I (1975), M/M/m",
@@ -86,7 +104,7 @@ _POOL = POOL  # the station's pool (fluid.stations)
 
 
 def agrees(formula: float, est: Estimate) -> bool:
-    """True when ``formula`` lies in the estimate's 95 % interval (degenerate intervals: see the
+    """True when ``formula`` lies in the estimate's interval (degenerate intervals: see the
     module docstring)."""
     if est.n < 2 or not math.isfinite(est.mean) or not math.isfinite(formula):
         return False
@@ -135,6 +153,8 @@ class StationResult:
     simulation: SimulationResult = field(repr=False)
     scenario: Scenario = field(repr=False)
     overrides: Mapping[str, Any] | None = None
+    level: float = 0.95  # each judged check's interval level (Bonferroni: check_level)
+    family_wise_level: float = FAMILY_WISE_LEVEL
 
     @property
     def all_agree(self) -> bool:
@@ -159,7 +179,9 @@ class StationResult:
     def to_json(self) -> dict:
         """``{"servers", "arrival_rate", "mean_hold", "patience_mean", "hold_cv",
         "class_rates", "within", "time_unit", "model", "checks": [...], "informative": [...],
-        "notes": [...], "all_agree", "replications", "horizon", "warmup", "seed"}``."""
+        "notes": [...], "all_agree", "level" (each judged check's interval), "family_wise_level"
+        (all judged checks together, Bonferroni), "replications", "horizon", "warmup",
+        "seed"}``."""
         sim = self.simulation
         return {
             "servers": self.servers, "arrival_rate": self.arrival_rate,
@@ -170,6 +192,7 @@ class StationResult:
             "checks": [c.to_json() for c in self.checks],
             "informative": [c.to_json() for c in self.informative],
             "notes": list(self.notes), "all_agree": self.all_agree,
+            "level": self.level, "family_wise_level": self.family_wise_level,
             "replications": sim.replications, "horizon": sim.horizon, "warmup": sim.warmup,
             "seed": sim.seed,
             "simulate_overrides": None if self.overrides is None else dict(self.overrides),
@@ -269,7 +292,8 @@ def station_check(servers: int, arrival_rate: float, mean_hold: float, *,
     places = ["queue"] if classes is None else [f"queue_{k}" for k in range(1, len(classes) + 1)]
     model, formulas, informative, notes = _formulas(
         servers, arrival_rate, mean_hold, patience_mean, hold_cv, classes, within, places)
-    checks = tuple(_judge(sim, *f) for f in formulas)
+    level = check_level(len(formulas))
+    checks = tuple(_judge(sim, *f, level=level) for f in formulas)
     info = tuple(_judge(sim, *f) for f in informative)
     info = tuple(StationCheck(c.metric, c.where, c.formula, c.simulation, False, c.source)
                  for c in info)
@@ -279,19 +303,22 @@ def station_check(servers: int, arrival_rate: float, mean_hold: float, *,
         model=model, checks=checks, informative=info, notes=tuple(notes), simulation=sim,
         scenario=scenario,
         overrides=None if not _simulate_overrides else dict(_simulate_overrides),
+        level=level,
     )
 
 
 def _judge(sim: SimulationResult, metric: str, where: str, formula: float,
-           source: str) -> StationCheck:
+           source: str, level: float = 0.95) -> StationCheck:
+    """One check: the Student t interval at ``level`` over the per-replication values."""
     if metric == "p_wait":
-        est = _p_wait(sim, where)
+        kind, name = "place", "delayed"  # (see _p_wait)
     elif metric == "busy":
-        est = sim.pools[where]["busy"]
+        kind, name = "pool", "busy"
     else:
+        kind = "place"
         name = {"mean_wait": "wait", "mean_queue": "queue", "service_level": "served_within",
                 "p_abandon": "abandoned", "blocking": "abandoned"}[metric]
-        est = sim.places[where][name]
+    est = Estimate.from_values(sim.raw(kind, where, name), level=level)
     return StationCheck(metric, where, float(formula), est, agrees(float(formula), est), source)
 
 

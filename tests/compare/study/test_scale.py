@@ -115,3 +115,65 @@ def test_scale_study_gap_shrinks_on_the_demo():
     json.dumps(doc, allow_nan=False)
     assert set(doc["fits"]) == {"throughput_shortfall", "abandonment_gap", "max_transition_gap"}
     assert len(doc["table"]) == 5
+
+
+def test_square_root_staffing_by_hand():
+    # Hand: one station, λ = 1/min, hold 4 min: offered work R = 4 agents; N = 6 gives
+    # β = (6 − 4)/√4 = 1. At k = 4: R_4 = 16, N_4 = 16 + 1·√16 = 20 (exact, no rounding note);
+    # at k = 2: R_2 = 8, N_2 = 8 + √8 = 10.83 → 11 (rounded, noted); k = 1 is the scenario.
+    from compare.study.station import station_scenario
+
+    s = station_scenario(6, 1.0, 4.0)
+    s4, notes4 = scale_scenario(s, 4, "sqrt")
+    assert s4.pools["agents"].staff == 20 and notes4 == ()
+    assert s4.sources[next(iter(s4.sources))].arrivals.rate == 4.0
+    s2, notes2 = scale_scenario(s, 2, "sqrt")
+    assert s2.pools["agents"].staff == 11 and "rounded" in notes2[0]
+    s1, _ = scale_scenario(s, 1, "sqrt")
+    assert s1.pools["agents"].staff == 6
+    with pytest.raises(ValueError, match="staffing"):
+        scale_scenario(s, 2, "cubic")
+
+
+def _sqrt_station_study(**kw):
+    from compare.study.station import station_scenario
+
+    # invented station: λ = 8/min, hold 1 min, mean patience 1 min, 10 agents (R = 8, β = 0.71)
+    s = station_scenario(10, 8.0, 1.0, patience_mean=1.0)
+    return scale_study(s, (1, 2, 4, 8, 16), reps=10, horizon=400, warmup=40, seed=3, workers=2,
+                       staffing="sqrt", **kw)
+
+
+def test_bootstrap_interval_is_reproducible_and_covers_the_square_root_exponent():
+    # Square-root (QED) staffing: relative gaps of order k^-1/2 (Halfin and Whitt 1981; with
+    # abandonment Garnett, Mandelbaum and Reiman 2002), so each exponent's bootstrap interval
+    # (fixed seed) must cover -1/2; the interval also contains its own point estimate, and the
+    # same study gives the same interval.
+    r = _sqrt_station_study()
+    again = _sqrt_station_study()
+    assert r.prediction["exponent"] == -0.5 and r.prediction["relation"] == "about"
+    for m, f in r.fits.items():
+        assert f.resamples >= 100
+        assert f.low <= f.exponent <= f.high, (m, f)
+        assert f.low <= -0.5 <= f.high, (m, f)
+        g = again.fits[m]
+        assert (g.low, g.high, g.resamples) == (f.low, f.high, f.resamples)
+    doc = json.loads(json.dumps(r.to_json()))
+    assert doc["staffing"] == "sqrt"
+    assert doc["fits"]["abandonment_gap"]["bootstrap_low"] == pytest.approx(
+        r.fits["abandonment_gap"].low)
+
+
+def test_prediction_follows_the_regime_and_the_text_never_assumes_it():
+    from compare.present.text import scale_text
+    from compare.study.scale import predicted_exponent
+
+    assert predicted_exponent("linear", 0.9)["relation"] == "below"
+    assert predicted_exponent("linear", 1.2)["relation"] == "at most"
+    assert "Whitt 2006" in predicted_exponent("linear", 1.2)["statement"]
+    assert predicted_exponent("sqrt", 0.9)["exponent"] == -0.5
+    r = scale_study(load_scenario(DEMO), (1, 2, 4), reps=3, seed=7, workers=2)
+    text = scale_text(r)
+    assert "about -1/2 expected" not in text
+    assert "staffing: linear" in text and "bootstrap 95 % interval" in text
+    assert r.prediction["relation"] == "below"  # the demo's loads are all below 1

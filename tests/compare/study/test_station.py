@@ -139,3 +139,44 @@ def test_station_scenario_shapes():
     assert "gamma" in station_yaml(3, 1.0, 2.0, hold_cv=0.5, hold_dist="gamma")
     with pytest.raises(ValueError, match="sum to"):
         station_check(3, 2.0, 1.0, class_rates=(0.4, 0.6))
+
+
+def test_each_check_is_judged_at_bonferroni_level():
+    # Bonferroni: m checks each at 1 - 0.05/m fail together with chance <= 0.05 when the
+    # formulas are right; the interval is Student's t over the per-replication values
+    # (half-width t_{1 - 0.025/m, n-1} s / sqrt(n), quantile from scipy.stats.t.ppf)
+    import numpy as np
+    from scipy import stats
+
+    from compare.study.station import FAMILY_WISE_LEVEL, check_level
+
+    assert FAMILY_WISE_LEVEL == 0.95
+    assert check_level(5) == pytest.approx(0.99)
+    assert check_level(1) == pytest.approx(0.95)
+    r = station_check(5, 1.0, 3.0, horizon=2000, warmup=200, **RUN)
+    m = len(r.checks)
+    assert m == 5 and r.level == pytest.approx(1 - 0.05 / m)
+    values = r.simulation.raw("place", "queue", "wait")
+    n = len(values)
+    half = stats.t.ppf(1 - 0.025 / m, n - 1) * np.std(values, ddof=1) / np.sqrt(n)
+    est = r.check("mean_wait").simulation
+    assert est.mean == pytest.approx(np.mean(values))
+    assert est.high - est.mean == pytest.approx(half)
+    doc = r.to_json()
+    assert doc["level"] == pytest.approx(0.99) and doc["family_wise_level"] == 0.95
+    from compare.present.text import station_text
+
+    assert "Bonferroni over the 5 checks" in station_text(r)
+
+
+@pytest.mark.slow
+def test_false_failure_rate_of_a_correct_simulator_is_at_most_five_percent():
+    # A correct simulator (Erlang C, λ = 1, hold 3, N = 5) over 40 independent base seeds: the
+    # number of runs with any failing check is Binomial(40, p) with p <= 0.05 when the
+    # family-wise level holds. Reject p <= 0.05 only if the count exceeds the 99 % quantile of
+    # Binomial(40, 0.05) (a one-sided binomial test at 1 %; scipy.stats.binom.ppf).
+    from scipy import stats
+
+    failing = sum(not station_check(5, 1.0, 3.0, horizon=2000, warmup=200, reps=5, seed=s,
+                                    workers=2).all_agree for s in range(1, 41))
+    assert failing <= stats.binom.ppf(0.99, 40, 0.05), failing
