@@ -133,10 +133,15 @@ def fluid_text(s: Scenario, r) -> str:
     pool_rows = []
     for name in s.pools:
         load = r.load.get(name)
+        offered = (getattr(r, "offered_load", None) or {}).get(name)
         pool_rows.append([name, fmt(s.pools[name].mean_staff(s.run.horizon)), fmt(load, 3),
-                          "yes" if name in r.bottlenecks else ""])
+                          fmt(offered, 3), "yes" if name in r.bottlenecks else ""])
     if pool_rows:
-        parts.append(format_table(["pool", "staff", "load", "bottleneck"], pool_rows))
+        parts.append(format_table(["pool", "staff", "load", "offered load", "bottleneck"],
+                                  pool_rows))
+        parts.append("load: agents busy at the fluid rates over staff (what the fluid routes "
+                     "through the pool, overflow included); offered load: the arrivals' work "
+                     "with every pool unlimited, over staff")
     done = sum(r.rates[t] for t in s.ending_transitions)
     offered = sum(r.source_rates.values()) if getattr(r, "source_rates", None) else None
     summary = f"jobs ended per {unit}: {fmt(done)}"

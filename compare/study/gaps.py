@@ -8,8 +8,9 @@ times in it:
   over all jobs leaving the place, served or abandoning), ``abandoned`` (share), ``queue``
   (time-average number waiting) and ``served_within`` (share taken within the target's
   ``within``; places with a target only);
-* per pool: fluid load (offered work / staff, may exceed 1) and fluid busy fraction (work at the
-  fluid rates / staff) vs simulated busy fraction;
+* per pool: fluid load and fluid busy fraction (both the work at the fluid rates / staff: what
+  the fluid routes through the pool, overflow included), the offered load (the arrivals' work
+  with every pool unlimited / staff, may exceed 1) vs simulated busy fraction;
 * totals: output rate (the transitions that end jobs) and overall abandonment (abandoned /
   ended, per replication from the source totals: :meth:`desim.SimulationResult.
   overall_abandonment`).
@@ -138,10 +139,12 @@ class Gaps:
 
     ``transitions``: columns transition, fluid, mean, low, high, n, gap, rel_gap, gap_kind;
     ``places``: place, metric, state, fluid, mean, low, high, n, gap, rel_gap, gap_kind;
-    ``pools``: pool, staff, load, fluid (busy at the fluid rates), mean, low, high, n, gap,
+    ``pools``: pool, staff, load (fluid-rate work / staff), offered_load (inflow-driven work with
+    every pool unlimited / staff), fluid (busy at the fluid rates), mean, low, high, n, gap,
     rel_gap, gap_kind; ``totals``: metric (output_rate, abandonment), fluid, mean, low, high, n,
-    gap, rel_gap, gap_kind (gaps: :data:`compare.study.gap.GAP_CONVENTION`). ``fluid_places``: the :class:`FluidPlace` of every waiting place; ``estimates``:
-    the totals' simulated :class:`~desim.Estimate` by metric."""
+    gap, rel_gap, gap_kind (gaps: :data:`compare.study.gap.GAP_CONVENTION`). ``fluid_places``:
+    the :class:`FluidPlace` of every waiting place; ``estimates``: the totals' simulated
+    :class:`~desim.Estimate` by metric."""
 
     time_unit: str
     transitions: pd.DataFrame
@@ -167,7 +170,7 @@ class Gaps:
 
     def to_json(self) -> dict:
         """``{"transitions": {t: row}, "places": {p: {state, inflow, capacity, wait_served,
-        metric: row}}, "pools": {r: {staff, load, busy: row}}, "totals": {metric: row}}`` with
+        metric: row}}, "pools": {r: {staff, load, offered_load, busy: row}}, "totals": {metric: row}}`` with
         row = ``{"fluid", "simulation": estimate, "gap", "rel_gap", "gap_kind"}``(the sign convention:
         :data:`compare.study.gap.GAP_CONVENTION`)."""
 
@@ -182,7 +185,7 @@ class Gaps:
         for r in self.places.itertuples(index=False):
             places.setdefault(r.place, {})[r.metric] = _row_json(r.fluid, est(r))
         pools = {r.pool: {"staff": num(r.staff), "load": num(r.load),
-                          "busy": _row_json(r.fluid, est(r))}
+                          "offered_load": num(r.offered_load), "busy": _row_json(r.fluid, est(r))}
                  for r in self.pools.itertuples(index=False)}
         totals = {r.metric: _row_json(r.fluid, est(r)) for r in self.totals.itertuples(index=False)}
         return {"transitions": transitions, "places": places, "pools": pools, "totals": totals}
@@ -202,7 +205,8 @@ def gap_tables(scenario: Scenario, fluid: FluidResult, sim: SimulationResult) ->
             place_rows.append([p, metric, fp.state, *_row(value, sim_p[metric])])
     busy = fluid_busy(scenario, fluid)
     pool_rows = [[r, fluid.staff.get(r, math.nan), fluid.load.get(r, math.nan),
-                  *_row(busy[r], sim.pools[r]["busy"])] for r in scenario.pools]
+                  fluid.offered_load.get(r, math.nan), *_row(busy[r], sim.pools[r]["busy"])]
+                 for r in scenario.pools]
     output = simulated_output(scenario, sim)
     abandonment = sim.overall_abandonment()
     totals = [["output_rate", *_row(fluid.output_rate, output)],
@@ -212,7 +216,8 @@ def gap_tables(scenario: Scenario, fluid: FluidResult, sim: SimulationResult) ->
         time_unit=scenario.time_unit,
         transitions=pd.DataFrame(trans, columns=["transition", *TABLE_COLUMNS]),
         places=pd.DataFrame(place_rows, columns=["place", "metric", "state", *TABLE_COLUMNS]),
-        pools=pd.DataFrame(pool_rows, columns=["pool", "staff", "load", *TABLE_COLUMNS]),
+        pools=pd.DataFrame(pool_rows, columns=["pool", "staff", "load", "offered_load",
+                                                 *TABLE_COLUMNS]),
         totals=pd.DataFrame(totals, columns=["metric", *TABLE_COLUMNS]),
         fluid_places=places_fluid,
         estimates={"output_rate": output, "abandonment": abandonment},
