@@ -60,3 +60,24 @@ def test_multi_skill_shared_pool_carries_the_overflow():
     assert r.offered_load["desk_1"] == pytest.approx(1.2)
     assert 0 < r.load["shared"] < 1
     assert all(v <= 1 + 1e-9 for v in r.load.values() if math.isfinite(v))
+
+
+def test_compare_on_the_overflow_net_reports_the_fluid_load_and_says_why_no_bottleneck():
+    # the own desk is fully busy in the fluid (load 1) yet every arrival is served (2.5 of 2.5),
+    # so it is no bottleneck: the near_critical flag must say so, and the gap table's load of the
+    # overflow desk is its fluid busy 0.75, not the unlimited figure 0
+    from compare.study.comparison import compare
+
+    s = load_scenario_text(overflow())
+    c = compare(s, reps=3, horizon=200, warmup=20, seed=3, workers=1)
+    pools = c.gaps.pools.set_index("pool")
+    assert pools.loc["overflow_desk", "load"] == pytest.approx(0.75, rel=1e-6)
+    assert pools.loc["overflow_desk", "load"] == pytest.approx(pools.loc["overflow_desk",
+                                                                          "fluid"], rel=1e-12)
+    assert pools.loc["overflow_desk", "offered_load"] == 0.0
+    assert c.fluid.bottlenecks == ()
+    own = [f for f in c.flags_of("near_critical") if f.where == "own_desk"]
+    assert len(own) == 1 and "not a fluid bottleneck" in own[0].message
+    doc = c.to_json()
+    assert doc["gaps"]["pools"]["overflow_desk"]["load"] == pytest.approx(0.75, rel=1e-6)
+    assert doc["gap_convention"].startswith("gaps: simulated minus fluid")
