@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -26,7 +26,7 @@ from .counters import (COUNTERS, MAX_POINTS, WITH_ABANDONMENT, CounterSolution,
                        integrate_counters, one_more_agent_levels)
 from .json_values import json_number
 from .lp import lp_bottlenecks
-from .offered import offered_rates, pool_loads
+from .offered import fluid_loads, offered_rates, pool_loads
 from .places import place_figures
 from .scenario import Scenario
 from .structure import (COUNTER_RISE, bottlenecks, counter_output_level, lp_applies,
@@ -46,10 +46,14 @@ class FluidResult:
     statistics window ``window`` = [warmup, horizon], as the simulation measures it);
     ``source_rates``: source -> arrivals per time unit on the same basis; ``output_rate``: total
     rate of the transitions that end jobs; ``bottlenecks``: pools whose one more agent raises the
-    output (phase "inflow" when there are none); ``load``: pool -> work offered at the inflow-driven
-    rates (``offered_rates``: every pool unlimited; mean arrival rates for profiles) divided by its
-    staff (mean staff over the horizon for schedules); ``inf`` when a pool with no staff is
-    offered work, ``nan`` for a pool on no conservation invariant; ``cross_check``: with the LP,
+    output (phase "inflow" when there are none); ``load``: pool -> agents busy at the fluid's own
+    rates (``rates``, ``source_rates``: what the fluid actually routes through the pool, overflow
+    included) divided by its staff (mean staff over the horizon for schedules), at most 1 up to
+    round-off (a pool with no staff: its offered load); ``offered_load``: pool -> work offered at the inflow-driven rates
+    (``offered_rates``: every pool unlimited, so with priorities the first choice takes every
+    job; mean arrival rates for profiles) over the same staff, may exceed 1; both ``inf`` when a
+    pool with no staff holds or is offered work, ``nan`` for a pool on no conservation
+    invariant; ``cross_check``: with the LP,
     when asked for, the largest relative difference between LP and counter rates (None otherwise);
     ``rounding``: worst relative rounding of a holding time on the counters' grid (None when no
     counters ran); ``notes``: caveats (e.g. patience ignored).
@@ -76,6 +80,7 @@ class FluidResult:
     counters: CounterSolution | None = field(default=None, repr=False, compare=False)
     model: str = COUNTERS.name
     places: dict = field(default_factory=dict)
+    offered_load: dict = field(default_factory=dict)
 
     @property
     def phase(self) -> str:
@@ -94,6 +99,7 @@ class FluidResult:
             rows.append(("source", s, "rate", v))
         for p, v in self.load.items():
             rows.append(("pool", p, "load", v))
+            rows.append(("pool", p, "offered_load", self.offered_load.get(p, math.nan)))
             rows.append(("pool", p, "staff", self.staff[p]))
             rows.append(("pool", p, "bottleneck", float(p in self.bottlenecks)))
         rows.append(("scenario", self.scenario_name, "output_rate", self.output_rate))
@@ -117,6 +123,7 @@ class FluidResult:
             "bottlenecks": list(self.bottlenecks),
             "phase": self.phase,
             "load": _clean(self.load),
+            "offered_load": _clean(self.offered_load),
             "offered_rates": _clean(self.offered_rates),
             "staff": _clean(self.staff),
             "window": None if self.window is None else [_num(x) for x in self.window],
@@ -207,15 +214,22 @@ def throughput(
     else:
         window = None
     load_horizon = horizon if horizon is not None else scenario.run.horizon
-    load, staff = pool_loads(scenario, load_horizon)
+    offered_load, staff = pool_loads(scenario, load_horizon)
     common = dict(
-        scenario_name=scenario.name, time_unit=scenario.time_unit, load=load, staff=staff,
-        offered_rates=offered_rates(scenario, load_horizon)[0],
+        scenario_name=scenario.name, time_unit=scenario.time_unit, load={}, staff=staff,
+        offered_rates=offered_rates(scenario, load_horizon)[0], offered_load=offered_load,
     )
     if method == "lp":
-        return _by_lp(scenario, dt, horizon, cross_check, notes, common)
-    model = WITH_ABANDONMENT if abandonment and scenario.has_patience else COUNTERS
-    return _by_counters(scenario, dt, horizon, notes, common, model, window)
+        result = _by_lp(scenario, dt, horizon, cross_check, notes, common)
+    else:
+        model = WITH_ABANDONMENT if abandonment and scenario.has_patience else COUNTERS
+        result = _by_counters(scenario, dt, horizon, notes, common, model, window)
+    # the load is read from the fluid's own rates: what overflow and priorities actually send
+    load = fluid_loads(scenario, result.rates, result.source_rates, staff)
+    # a pool with no staff carries nothing at the fluid rates: its load says whether work
+    # waits for it (inf) or not (0), as the offered figure does
+    load = {r: offered_load[r] if staff[r] <= 0 else v for r, v in load.items()}
+    return replace(result, load=load)
 
 
 def _by_lp(scenario, dt, horizon, cross_check, notes, common) -> FluidResult:

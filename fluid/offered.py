@@ -5,7 +5,10 @@ unlimited staff: the jobs entering a place split over its outputs by :func:`flui
 unlimited_share`, and the flow balance ``x = λ + Pᵀx`` over the job places gives each place's
 inflow. A pool's *work* at given inflows is the number of its agents busy: Σ over the job places
 on the pool's conservation invariant (:func:`fluid.invariants.pool_invariants`) of weight × mean
-hold × inflow. Its *load* is the offered work over its staff.
+hold × inflow. Its *offered load* is the offered work over its staff; its *load* (what the fluid
+analysis reports) is the work at the fluid's own rates over its staff (:func:`fluid_loads`):
+what the fluid actually routes through the pool, so an overflow pool that the unlimited split
+never reaches still shows the work that overflow sends it.
 
 These are derived facts of the net, read by the fluid analysis, phase diagrams, fluid staffing,
 the gap tables and the staffing search; they live here and in :mod:`fluid.structure` only.
@@ -21,9 +24,9 @@ import numpy as np
 
 from .invariants import pool_invariants
 from .scenario import Scenario
-from .structure import places_that_can_end, unlimited_share
+from .structure import inflow, places_that_can_end, unlimited_share
 
-__all__ = ["offered_rates", "offered_work", "pool_loads", "pool_work"]
+__all__ = ["fluid_loads", "offered_rates", "offered_work", "pool_loads", "pool_work"]
 
 
 def offered_rates(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
@@ -116,19 +119,34 @@ def offered_work(scenario: Scenario, horizon: float | None = None) -> dict[str, 
     return pool_work(scenario, offered_rates(scenario, horizon)[1])
 
 
-def pool_loads(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
-    """``(load, staff)`` per pool: offered work (:func:`offered_work`) over staff (mean staff
-    over ``horizon`` with a schedule; default the run horizon). ``inf`` when a pool with no
-    staff is offered work, nan for a pool on no invariant."""
-    h = scenario.run.horizon if horizon is None else horizon
-    work = offered_work(scenario, h)
-    load, staff = {}, {}
-    for r, pool in scenario.pools.items():
-        staff[r] = pool.mean_staff(h)
-        if math.isnan(work[r]):
+def _over_staff(work: Mapping[str, float], staff: Mapping[str, float]) -> dict[str, float]:
+    load = {}
+    for r, w in work.items():
+        if math.isnan(w):
             load[r] = math.nan
         elif staff[r] > 0:
-            load[r] = work[r] / staff[r]
+            load[r] = w / staff[r]
         else:
-            load[r] = math.inf if work[r] > 0 else 0.0
-    return load, staff
+            load[r] = math.inf if w > 0 else 0.0
+    return load
+
+
+def pool_loads(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
+    """``(offered load, staff)`` per pool: offered work (:func:`offered_work`, every pool
+    unlimited) over staff (mean staff over ``horizon`` with a schedule; default the run
+    horizon). ``inf`` when a pool with no staff is offered work, nan for a pool on no
+    invariant."""
+    h = scenario.run.horizon if horizon is None else horizon
+    staff = {r: pool.mean_staff(h) for r, pool in scenario.pools.items()}
+    return _over_staff(offered_work(scenario, h), staff), staff
+
+
+def fluid_loads(scenario: Scenario, rates: Mapping[str, float],
+                source_rates: Mapping[str, float], staff: Mapping[str, float]) -> dict[str, float]:
+    """Pool -> load at the fluid's own rates: agents busy (:func:`pool_work` at the places'
+    inflows when the transitions fire at ``rates`` and the sources arrive at ``source_rates``,
+    per time unit) over ``staff``. At most 1 where the fluid keeps to its staff; ``inf`` when a
+    pool with no staff holds work, nan for a pool on no invariant."""
+    work = pool_work(scenario, {p: inflow(scenario, p, rates, source_rates)
+                                for p in scenario.places})
+    return _over_staff(work, staff)

@@ -22,6 +22,8 @@ import pandas as pd
 from matplotlib.figure import Figure
 from matplotlib.ticker import NullFormatter
 
+from ..study.gap import gap_text
+
 __all__ = [
     "OKABE_ITO",
     "rates_figure",
@@ -104,7 +106,9 @@ def rates_figure(fluid_rates: Mapping[str, float], sim: Mapping[str, Any], time_
     triangle (▶) where it lies above the simulated interval (the fluid model is optimistic
     there), a green left triangle (◀) where it lies below, an orange diamond inside; in each row
     the simulated value sits slightly above the fluid one so neither hides the other. The right
-    margin gives the relative difference (fluid − simulated mean) / simulated mean in per cent.
+    margin gives the gap (simulated mean − fluid) / |fluid| in per cent, the sign convention of
+    every gap (:data:`compare.study.gap.GAP_CONVENTION`; the absolute difference where the fluid
+    rate is near zero).
     Transitions are listed top to bottom in the order of ``sim``, then any only in
     ``fluid_rates``; a missing value is simply not drawn. ``log``: logarithmic rate axis."""
     names = list(sim) + [q for q in fluid_rates if q not in sim]
@@ -136,8 +140,8 @@ def rates_figure(fluid_rates: Mapping[str, float], sim: Mapping[str, Any], time_
                 kinds["below"].append((f, yi - offset))
             else:
                 kinds["inside"].append((f, yi - offset))
-            if has_mean and est.mean != 0:
-                ax.annotate(f"{(f - est.mean) / abs(est.mean):+.1%}", (1.0, yi), xycoords=right,
+            if has_mean:
+                ax.annotate(gap_text(f, est.mean), (1.0, yi), xycoords=right,
                             xytext=(6, 0), textcoords="offset points", va="center", fontsize=8)
         handles = [ax.errorbar([], [], xerr=[], fmt="o", color=SIMULATED, capsize=3,
                                label="simulated mean, 95 % interval")]
@@ -148,7 +152,7 @@ def rates_figure(fluid_rates: Mapping[str, float], sim: Mapping[str, Any], time_
                 handles.append(ax.scatter(xs, ys, marker=marker, s=42, color=colour,
                                           edgecolor="black", linewidth=0.5, zorder=3,
                                           label=label))
-        ax.annotate("fluid vs\nsimulated", (1.0, 1.0), xycoords="axes fraction", xytext=(6, 2),
+        ax.annotate("simulated\nminus fluid", (1.0, 1.0), xycoords="axes fraction", xytext=(6, 2),
                     textcoords="offset points", va="bottom", fontsize=7, color=REFERENCE)
         ax.set_yticks(y, names)
         ax.set_ylim(-0.7, len(names) - 0.3)

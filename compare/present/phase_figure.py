@@ -160,8 +160,8 @@ def phase_figure(diagram: PhaseDiagram, *, overlay: pd.DataFrame | None = None,
                  title: str | None = None) -> Figure:
     """Draw ``diagram`` (regions by limiting pools, boundaries, lines of equal fluid rate, the
     scenario's staff as a black star). ``overlay``: the table of :func:`phase_overlay`; its
-    points are drawn on top, sized by the relative throughput gap |fluid − simulated| /
-    simulated, as vermillion triangles where the fluid is optimistic (above the simulated
+    points are drawn on top, sized by the relative throughput gap |simulated − fluid| / |fluid|
+    and labelled with its sign (simulated minus fluid, as every gap), as vermillion triangles where the fluid is optimistic (above the simulated
     interval of the rate) and blue circles elsewhere. When the overlay has
     service levels a second panel shows, per point, whether every target (service levels and
     abandonment) is met with confidence (green square) or not (vermillion cross), with the worst

@@ -8,6 +8,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from ..study.gap import GAP_CONVENTION
 from .figures import pooled_waits, rates_figure, scale_figure, transient_figure, waits_figure
 from .html import ReportFiles, write_report
 
@@ -47,8 +48,8 @@ def comparison_report(directory, comparison, scenario, *, caution: str,
                                                 warmup=comparison.settings.warmup or None)
         tables["per_interval"] = comparison.transient
     return write_report(directory, title=f"fluidgap compare: {scenario.name}",
-                        summary_lines=summary, tables=tables, figures=figures,
-                        json_doc=comparison.to_json(), caution=caution)
+                        summary_lines=[*summary, GAP_CONVENTION], tables=tables,
+                        figures=figures, json_doc=comparison.to_json(), caution=caution)
 
 
 def station_report(directory, station, *, caution: str, summary: list[str]) -> ReportFiles:

@@ -6,6 +6,7 @@ from typing import Any
 
 from fluid.scenario import Scenario
 
+from ..study.gap import GAP_CONVENTION, gap_text
 from .tables import fmt, fmt_estimate, format_table
 
 #: Printed with every result and in every report (staffing can affect people's safety).
@@ -159,10 +160,15 @@ def fluid_text(s: Scenario, r) -> str:
     pool_rows = []
     for name in s.pools:
         load = r.load.get(name)
+        offered = (getattr(r, "offered_load", None) or {}).get(name)
         pool_rows.append([name, fmt(s.pools[name].mean_staff(s.run.horizon)), fmt(load, 3),
-                          "yes" if name in r.bottlenecks else ""])
+                          fmt(offered, 3), "yes" if name in r.bottlenecks else ""])
     if pool_rows:
-        parts.append(format_table(["pool", "staff", "load", "bottleneck"], pool_rows))
+        parts.append(format_table(["pool", "staff", "load", "offered load", "bottleneck"],
+                                  pool_rows))
+        parts.append("load: agents busy at the fluid rates over staff (what the fluid routes "
+                     "through the pool, overflow included); offered load: the arrivals' work "
+                     "with every pool unlimited, over staff")
     done = sum(r.rates[t] for t in s.ending_transitions)
     offered = sum(r.source_rates.values()) if getattr(r, "source_rates", None) else None
     summary = f"jobs ended per {unit}: {fmt(done)}"
@@ -305,15 +311,14 @@ def _gap_rows(frame, name_col: str, extra=()):
     rows = []
     for r in frame.to_dict("records"):
         est = _Row(r["mean"], r["low"], r["high"], int(r["n"]))
-        rel = r.get("rel_gap")
         rows.append([r[name_col], *[r[e] for e in extra], fmt(r["fluid"]), fmt_estimate(est),
-                     "-" if rel is None or rel != rel else f"{100 * rel:+.1f} %"])
+                     gap_text(r["fluid"], r["mean"])])
     return rows
 
 
 def comparison_text(s: Scenario, c) -> str:
     unit = s.time_unit
-    parts = ["\n".join(comparison_summary(s, c)[:-1]), flags_text(c.flags)]
+    parts = ["\n".join(comparison_summary(s, c)[:-1]), flags_text(c.flags), GAP_CONVENTION]
     parts.append(format_table(
         ["transition", f"fluid rate per {unit}", "simulated [95 % interval]", "gap"],
         _gap_rows(c.gaps.transitions, "transition")))

@@ -21,6 +21,7 @@ from fluid.json_values import json_ready
 from fluid.scenario import Scenario
 
 from .flags import Flag, find_flags
+from .gap import GAP_CONVENTION
 from .gaps import Gaps, gap_tables
 from .transient import default_interval, transient_table
 
@@ -60,8 +61,10 @@ class Comparison:
         return pd.DataFrame([f.to_json() for f in self.flags], columns=["kind", "where", "message"])
 
     def to_json(self) -> dict:
-        """``{"scenario", "time_unit", "settings", "fluid", "simulation", "gaps", "flags",
-        "transient", "interval", "notes"}`` (design.md §5); nan and inf become null."""
+        """``{"scenario", "time_unit", "settings", "fluid", "simulation", "gaps", "gap_convention",
+        "flags", "transient", "interval", "notes"}`` (design.md §5; ``gap_convention``: the one
+        sign convention of every gap, :data:`compare.study.gap.GAP_CONVENTION`); nan and inf
+        become null."""
         transient = None
         if self.transient is not None:
             transient = json_ready(self.transient.to_dict("records"))
@@ -72,6 +75,7 @@ class Comparison:
             "fluid": self.fluid.to_dict(),
             "simulation": self.simulation.to_json(),
             "gaps": self.gaps.to_json(),
+            "gap_convention": GAP_CONVENTION,
             "flags": [f.to_json() for f in self.flags],
             "transient": transient,
             "interval": self.interval,

@@ -17,7 +17,8 @@ The kinds and when they fire (times in the scenario's time unit; "interval" is t
 * ``abandonment_underestimated`` (a waiting place): the simulated abandonment interval lies
   above the fluid share by more than :data:`ABANDONMENT_TOLERANCE` (one percentage point,
   absolute): ``low > fluid + 0.01``.
-* ``near_critical`` (a pool): its fluid load lies in [0.85, 1.15].
+* ``near_critical`` (a pool): its fluid load (agents busy at the fluid rates over staff, so
+  what overflow and priorities actually send it) lies in [0.85, 1.15].
 * ``target_missed``: a service level interval wholly below its goal (``high < goal``; where =
   the place), or the overall abandonment interval (computed per replication from the source
   totals) wholly above the maximum (``low > max``; where = the place with the most
@@ -150,6 +151,16 @@ def _busiest(pools: list[str], fluid: FluidResult, sim: SimulationResult) -> str
     return max(pools, key=key)
 
 
+def _saturation(pool: str, load: float, fluid: FluidResult) -> str:
+    """Why a pool the fluid keeps fully busy is or is not a bottleneck (empty below capacity)."""
+    if load < 1.0 - 1e-9:
+        return ""
+    if pool in fluid.bottlenecks:
+        return "; the fluid keeps it fully busy and it is a fluid bottleneck"
+    return ("; the fluid keeps it fully busy but it is not a fluid bottleneck: one more agent "
+            "here would not raise the fluid output (another pool or the inflow limits it)")
+
+
 def _advice(pool: str | None, fluid: FluidResult, sim: SimulationResult) -> str:
     if pool is None:
         return f"check the staffing, {STAFF_ADVICE}"
@@ -267,7 +278,8 @@ def find_flags(scenario: Scenario, fluid: FluidResult, sim: SimulationResult,
         if low <= load <= high:
             busy = sim.pools[r]["busy"]
             flags.append(Flag("near_critical", r, (
-                f"fluid load {_f(load)} is within 15 % of the pool's capacity (simulated busy "
+                f"fluid load {_f(load)} (agents busy at the fluid rates over staff) is within "
+                f"15 % of the pool's capacity{_saturation(r, load, fluid)} (simulated busy "
                 f"{_est(busy)}): here randomness, not averages, decides the waits; read the "
                 f"simulated waits, not the fluid ones, and consider adding staff to pool {r} "
                 f"{STAFF_ADVICE}")))

@@ -8,15 +8,18 @@ times in it:
   over all jobs leaving the place, served or abandoning), ``abandoned`` (share), ``queue``
   (time-average number waiting) and ``served_within`` (share taken within the target's
   ``within``; places with a target only);
-* per pool: fluid load (offered work / staff, may exceed 1) and fluid busy fraction (work at the
-  fluid rates / staff) vs simulated busy fraction;
+* per pool: fluid load and fluid busy fraction (both the work at the fluid rates / staff: what
+  the fluid routes through the pool, overflow included), the offered load (the arrivals' work
+  with every pool unlimited / staff, may exceed 1) vs simulated busy fraction;
 * totals: output rate (the transitions that end jobs) and overall abandonment (abandoned /
   ended, per replication from the source totals: :meth:`desim.SimulationResult.
   overall_abandonment`).
 
-Every row carries ``gap = simulated mean − fluid`` and ``rel_gap = gap / |fluid|`` (nan when the
-fluid value is 0 or infinite): a negative throughput gap means the simulation serves less than
-the fluid model promises.
+Every row carries ``gap = simulated mean − fluid``, ``rel_gap = gap / |fluid|`` and
+``gap_kind`` under the one convention of :mod:`compare.study.gap`: a negative throughput gap
+means the simulation serves less than the fluid model promises; where the fluid value is near
+zero (at most 1 % of the larger of the two values) ``rel_gap`` is nan and ``gap_kind`` is
+"absolute" (read ``gap``).
 
 The fluid figures of a waiting place come with the fluid answer itself
 (:attr:`fluid.analysis.FluidResult.places`, :class:`fluid.places.FluidPlace`): in steady state
@@ -43,6 +46,8 @@ from fluid.places import PLACE_TOLERANCE, FluidPlace, stationary_place
 from fluid.scenario import Scenario
 from fluid.structure import inflow, output_transitions, waiting_places
 
+from .gap import gap_between
+
 
 __all__ = [
     "PLACE_TOLERANCE",
@@ -57,25 +62,21 @@ __all__ = [
 ]
 
 ROW_COLUMNS = ["fluid", "mean", "low", "high", "n", "gap", "rel_gap"]
+TABLE_COLUMNS = [*ROW_COLUMNS, "gap_kind"]  # the tables (and their CSV) also say which gap to read
 
 
 num = json_number  # a JSON-ready number: nan and inf become None
 
 
-def _gap(fluid: float, est: Estimate) -> tuple[float, float]:
-    gap = est.mean - fluid
-    rel = gap / abs(fluid) if fluid != 0 and math.isfinite(fluid) else math.nan
-    return gap, rel
-
-
 def _row(fluid: float, est: Estimate) -> list:
-    return [fluid, est.mean, est.low, est.high, est.n, *_gap(fluid, est)]
+    g = gap_between(fluid, est.mean)
+    return [fluid, est.mean, est.low, est.high, est.n, g.absolute, g.relative, g.kind]
 
 
 def _row_json(fluid: float, est: Estimate) -> dict:
-    gap, rel = _gap(fluid, est)
-    return {"fluid": num(fluid), "simulation": est.to_json(), "gap": num(gap),
-            "rel_gap": num(rel)}
+    g = gap_between(fluid, est.mean)
+    return {"fluid": num(fluid), "simulation": est.to_json(), "gap": num(g.absolute),
+            "rel_gap": num(g.relative), "gap_kind": g.kind}
 
 
 # --- fluid figures per place and pool ------------------------------------------------------------
@@ -136,12 +137,14 @@ def simulated_output(scenario: Scenario, sim: SimulationResult) -> Estimate:
 class Gaps:
     """Gap tables of one comparison (see the module docstring).
 
-    ``transitions``: columns transition, fluid, mean, low, high, n, gap, rel_gap;
-    ``places``: place, metric, state, fluid, mean, low, high, n, gap, rel_gap;
-    ``pools``: pool, staff, load, fluid (busy at the fluid rates), mean, low, high, n, gap,
-    rel_gap; ``totals``: metric (output_rate, abandonment), fluid, mean, low, high, n, gap,
-    rel_gap. ``fluid_places``: the :class:`FluidPlace` of every waiting place; ``estimates``:
-    the totals' simulated :class:`~desim.Estimate` by metric."""
+    ``transitions``: columns transition, fluid, mean, low, high, n, gap, rel_gap, gap_kind;
+    ``places``: place, metric, state, fluid, mean, low, high, n, gap, rel_gap, gap_kind;
+    ``pools``: pool, staff, load (fluid-rate work / staff), offered_load (inflow-driven work with
+    every pool unlimited / staff), fluid (busy at the fluid rates), mean, low, high, n, gap,
+    rel_gap, gap_kind; ``totals``: metric (output_rate, abandonment), fluid, mean, low, high, n,
+    gap, rel_gap, gap_kind (gaps: :data:`compare.study.gap.GAP_CONVENTION`). ``fluid_places``:
+    the :class:`FluidPlace` of every waiting place; ``estimates``: the totals' simulated
+    :class:`~desim.Estimate` by metric."""
 
     time_unit: str
     transitions: pd.DataFrame
@@ -167,8 +170,9 @@ class Gaps:
 
     def to_json(self) -> dict:
         """``{"transitions": {t: row}, "places": {p: {state, inflow, capacity, wait_served,
-        metric: row}}, "pools": {r: {staff, load, busy: row}}, "totals": {metric: row}}`` with
-        row = ``{"fluid", "simulation": estimate, "gap", "rel_gap"}``."""
+        metric: row}}, "pools": {r: {staff, load, offered_load, busy: row}}, "totals": {metric: row}}`` with
+        row = ``{"fluid", "simulation": estimate, "gap", "rel_gap", "gap_kind"}``(the sign convention:
+        :data:`compare.study.gap.GAP_CONVENTION`)."""
 
         def est(r) -> Estimate:
             return Estimate(float(r.mean), float(r.low), float(r.high), int(r.n))
@@ -181,7 +185,7 @@ class Gaps:
         for r in self.places.itertuples(index=False):
             places.setdefault(r.place, {})[r.metric] = _row_json(r.fluid, est(r))
         pools = {r.pool: {"staff": num(r.staff), "load": num(r.load),
-                          "busy": _row_json(r.fluid, est(r))}
+                          "offered_load": num(r.offered_load), "busy": _row_json(r.fluid, est(r))}
                  for r in self.pools.itertuples(index=False)}
         totals = {r.metric: _row_json(r.fluid, est(r)) for r in self.totals.itertuples(index=False)}
         return {"transitions": transitions, "places": places, "pools": pools, "totals": totals}
@@ -201,7 +205,8 @@ def gap_tables(scenario: Scenario, fluid: FluidResult, sim: SimulationResult) ->
             place_rows.append([p, metric, fp.state, *_row(value, sim_p[metric])])
     busy = fluid_busy(scenario, fluid)
     pool_rows = [[r, fluid.staff.get(r, math.nan), fluid.load.get(r, math.nan),
-                  *_row(busy[r], sim.pools[r]["busy"])] for r in scenario.pools]
+                  fluid.offered_load.get(r, math.nan), *_row(busy[r], sim.pools[r]["busy"])]
+                 for r in scenario.pools]
     output = simulated_output(scenario, sim)
     abandonment = sim.overall_abandonment()
     totals = [["output_rate", *_row(fluid.output_rate, output)],
@@ -209,10 +214,11 @@ def gap_tables(scenario: Scenario, fluid: FluidResult, sim: SimulationResult) ->
                                     abandonment)]]
     return Gaps(
         time_unit=scenario.time_unit,
-        transitions=pd.DataFrame(trans, columns=["transition", *ROW_COLUMNS]),
-        places=pd.DataFrame(place_rows, columns=["place", "metric", "state", *ROW_COLUMNS]),
-        pools=pd.DataFrame(pool_rows, columns=["pool", "staff", "load", *ROW_COLUMNS]),
-        totals=pd.DataFrame(totals, columns=["metric", *ROW_COLUMNS]),
+        transitions=pd.DataFrame(trans, columns=["transition", *TABLE_COLUMNS]),
+        places=pd.DataFrame(place_rows, columns=["place", "metric", "state", *TABLE_COLUMNS]),
+        pools=pd.DataFrame(pool_rows, columns=["pool", "staff", "load", "offered_load",
+                                                 *TABLE_COLUMNS]),
+        totals=pd.DataFrame(totals, columns=["metric", *TABLE_COLUMNS]),
         fluid_places=places_fluid,
         estimates={"output_rate": output, "abandonment": abandonment},
     )

@@ -20,6 +20,7 @@ from fluid.scenario import Scenario
 from fluid.service_level import service_level_verdicts
 from fluid.staffing import with_staff
 
+from .gap import gap_between
 from .sweep import Sweep
 from .staffing_search import ABANDONMENT, meets_targets, target_estimates
 
@@ -56,7 +57,8 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram,
     Returns one row per point: a (staff of the first axis), b (of the second; only with two
     axes), fluid_rate and the simulated rate of
     the diagram's transitions (sim_mean, sim_low, sim_high, n; per the scenario's time unit),
-    gap = (fluid − simulated mean) / simulated mean, rate_optimistic and optimistic (the fluid
+    gap = (simulated mean − fluid) / |fluid| and gap_kind (the one convention of
+    :mod:`compare.study.gap`: nan and "absolute" where the fluid rate is near zero), rate_optimistic and optimistic (the fluid
     rate above the simulated interval); for every place with a service-level target:
     ``<place>_sl_fluid`` (the fluid verdict of
     :func:`fluid.service_level.service_level_verdicts`: 1, 0 or nan), ``<place>_sl_mean``,
@@ -80,10 +82,10 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram,
             sim = sweep.run(variant, "-".join(f"{p}{n}" for p, n in staff.items()))
             rate = Estimate.from_values(sum(sim.raw("transition", q, "rate") for q in diagram.of))
             fluid = float(diagram.rate_at(*pt))
-            gap = (fluid - rate.mean) / rate.mean if rate.mean else math.nan
+            gap = gap_between(fluid, rate.mean)
             row = dict(zip("ab", pt)) | dict(
                 fluid_rate=fluid, sim_mean=rate.mean, sim_low=rate.low, sim_high=rate.high,
-                n=rate.n, gap=gap,
+                n=rate.n, gap=gap.relative, gap_kind=gap.kind,
                 rate_optimistic=bool(math.isfinite(rate.high) and fluid > rate.high))
             estimates = target_estimates(scenario, sim)
             fluid_sl = service_level_verdicts(variant)

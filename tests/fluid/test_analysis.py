@@ -29,7 +29,7 @@ def test_single_pool(rate, bottlenecks):
     assert r.method == "lp"
     assert r.rates["answer"] == pytest.approx(min(rate, 2.5), abs=EXACT)
     assert r.output_rate == pytest.approx(min(rate, 2.5), abs=EXACT)
-    assert r.load["agents"] == pytest.approx(rate * 2.0 / 5, abs=EXACT)
+    assert r.offered_load["agents"] == pytest.approx(rate * 2.0 / 5, abs=EXACT)
     assert r.bottlenecks == bottlenecks
     assert r.phase == ("agents" if bottlenecks else "inflow")
     assert r.cross_check is not None and r.cross_check < 1e-9
@@ -53,8 +53,8 @@ def test_cold_transfer_bottleneck_and_loads():
     r = throughput(nets.load(nets.cold_transfer()))
     assert r.output_rate == pytest.approx(3.6, abs=EXACT)
     assert r.bottlenecks == ("billing_desk",)
-    assert r.load["front_desk"] == pytest.approx(0.8, abs=EXACT)
-    assert r.load["billing_desk"] == pytest.approx(5 / 3, abs=EXACT)
+    assert r.offered_load["front_desk"] == pytest.approx(0.8, abs=EXACT)
+    assert r.offered_load["billing_desk"] == pytest.approx(5 / 3, abs=EXACT)
     assert r.offered_rates["billing_answer"] == pytest.approx(1.0, abs=EXACT)
 
 
@@ -72,14 +72,14 @@ def test_hand_over_regimes(supervisors, bottleneck, sup_load):
     # supervisor is zero at inflow-driven rates)
     r = throughput(nets.load(nets.hand_over(10, supervisors)))
     assert r.bottlenecks == (bottleneck,)
-    assert r.load["front_desk"] == pytest.approx(1.5, abs=EXACT)
-    assert r.load["supervisors"] == pytest.approx(sup_load, abs=EXACT)
+    assert r.offered_load["front_desk"] == pytest.approx(1.5, abs=EXACT)
+    assert r.offered_load["supervisors"] == pytest.approx(sup_load, abs=EXACT)
 
 
 def test_two_agents_load():
     # By hand: 2 agents × 2 min × 2 jobs per min / 5 agents = 1.6
     r = throughput(nets.load(nets.two_agents()))
-    assert r.load["crew"] == pytest.approx(1.6, abs=EXACT)
+    assert r.offered_load["crew"] == pytest.approx(1.6, abs=EXACT)
     assert r.bottlenecks == ("crew",)
 
 
@@ -91,7 +91,7 @@ def test_priority_desk_uses_the_counters():
     assert r.rates["high_answer"] == pytest.approx(1.0, abs=EXACT)
     assert r.rates["low_answer"] == pytest.approx(4 / 3, abs=EXACT)
     assert r.bottlenecks == ("desk",)
-    assert r.load["desk"] == pytest.approx(11 / 6, abs=EXACT)
+    assert r.offered_load["desk"] == pytest.approx(11 / 6, abs=EXACT)
     assert r.cross_check is None
     assert "abandonment" in r.model  # the fluid model used is named, and it abandons
     with pytest.raises(ValueError, match="priority"):
@@ -108,13 +108,13 @@ def test_time_varying_nets_report_window_means():
     assert r.window == (0.0, 200.0)
     assert r.rates["answer"] == pytest.approx(1.9, abs=EXACT)
     assert r.source_rates["calls"] == pytest.approx(2.8, abs=EXACT)
-    assert r.load["agents"] == pytest.approx(1.4, abs=EXACT)
+    assert r.offered_load["agents"] == pytest.approx(1.4, abs=EXACT)
     assert r.bottlenecks == ("agents",)
     # Schedule 6 then 2 agents (step 50, horizon 300): mean staff (300 + 500)/300 = 8/3,
     # load 2.5 × 2 / (8/3) = 1.875
     cut = throughput(nets.load(nets.staff_cut()))
     assert cut.staff["agents"] == pytest.approx(8 / 3, abs=EXACT)
-    assert cut.load["agents"] == pytest.approx(1.875, abs=EXACT)
+    assert cut.offered_load["agents"] == pytest.approx(1.875, abs=EXACT)
     assert cut.bottlenecks == ("agents",)
 
 
@@ -147,7 +147,7 @@ def test_json_contract():
 def test_to_frame_is_tidy():
     frame = throughput(nets.load(nets.cold_transfer())).to_frame()
     assert list(frame.columns) == ["kind", "name", "metric", "value"]
-    row = frame[(frame.kind == "pool") & (frame.name == "billing_desk") & (frame.metric == "load")]
+    row = frame[(frame.kind == "pool") & (frame.name == "billing_desk") & (frame.metric == "offered_load")]
     assert row.value.item() == pytest.approx(5 / 3)
     assert set(frame.kind) == {"transition", "source", "pool", "scenario"}
 

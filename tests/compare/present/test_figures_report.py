@@ -56,10 +56,10 @@ def test_rates_figure_marks_fluid_above_interval_as_optimistic():
     assert below.get_offsets()[:, 0].tolist() == [0.3]
     assert tuple(above.get_facecolor()[0][:3]) == pytest.approx(
         tuple(int(OPTIMISTIC[i:i + 2], 16) / 255 for i in (1, 3, 5)))
-    # right margin: (fluid - mean) / mean = (2.0 - 1.6) / 1.6 = +25.0 %, (1.05-1)/1 = +5.0 %,
-    # (0.3 - 0.5) / 0.5 = -40.0 %
+    # right margin, the sign of every gap (issue 13 item 5): (mean - fluid) / |fluid| =
+    # (1.6 - 2.0) / 2.0 = -20.0 %, (1 - 1.05) / 1.05 = -4.8 %, (0.5 - 0.3) / 0.3 = +66.7 %
     texts = {t.get_text() for t in ax.texts}
-    assert {"+25.0%", "+5.0%", "-40.0%"} <= texts
+    assert {"-20.0 %", "-4.8 %", "+66.7 %"} <= texts
     legend = fig.legends[0]
     assert "simulated mean, 95 % interval" in [t.get_text() for t in legend.get_texts()]
 

@@ -102,7 +102,8 @@ def test_fluid_columns_overloaded_with_patience_follow_whitt():
     assert fp.wait == pytest.approx(1 / 3, rel=1e-8)
     assert fp.served_within == pytest.approx(5 / 6, rel=1e-9)
     assert row(g.transitions, transition="answer").fluid == pytest.approx(5.0, rel=1e-9)
-    assert row(g.pools, pool="agents").load == pytest.approx(1.2, rel=1e-9)
+    assert row(g.pools, pool="agents").offered_load == pytest.approx(1.2, rel=1e-9)
+    assert row(g.pools, pool="agents").load == pytest.approx(1.0, rel=1e-9)  # fluid rates
     assert row(g.pools, pool="agents").fluid == pytest.approx(1.0, rel=1e-9)
     # overall: abandoning 6·(1/6) = 1 per minute of 6 arriving
     assert row(g.totals, metric="abandonment").fluid == pytest.approx(1 / 6, rel=1e-9)

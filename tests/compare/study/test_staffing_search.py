@@ -274,7 +274,8 @@ def test_phase_overlay_and_figure():
     for row in table.itertuples():
         # by hand (test_phases): rate = min(λ, F/3, S) with λ = 5
         assert row.fluid_rate == pytest.approx(min(5.0, row.a / 3, row.b), abs=1e-9)
-        assert row.gap == pytest.approx((row.fluid_rate - row.sim_mean) / row.sim_mean)
+        # issue 13 item 5: the same sign as the gap tables, simulated minus fluid over |fluid|
+        assert row.gap == pytest.approx((row.sim_mean - row.fluid_rate) / row.fluid_rate)
         assert row.optimistic == (row.fluid_rate > row.sim_high)
         assert row.n == 6
         assert row.front_queue_sl_goal == 0.8
