@@ -226,9 +226,12 @@ def _pct(x: float) -> str:
     return fmt(100 * x, 3) + " %"
 
 
-def flags_text(flags) -> str:
+def flags_text(flags, no_verdict: str | None = None) -> str:
     """Flags grouped by kind; a throughput shortfall inherited by many transitions downstream
-    is listed once with the transitions it reaches."""
+    is listed once with the transitions it reaches. ``no_verdict``: the line said instead when
+    no flag was judged (fewer than two replications)."""
+    if no_verdict is not None:
+        return no_verdict
     if not flags:
         return "flags: none (the fluid answer holds within the simulation's intervals)"
     import textwrap
@@ -270,7 +273,10 @@ def comparison_summary(s: Scenario, c) -> list[str]:
         lines.append(f"abandonment: fluid {_pct(ab['fluid'])}, simulated {_pct(ab['mean'])} "
                      f"[{_pct(ab['low'])}, {_pct(ab['high'])}]")
     kinds = sorted({f.kind for f in c.flags})
-    lines.append("flags: " + (", ".join(kinds) if kinds else "none"))
+    if not getattr(c, "verdicts", True):
+        lines.append("flags: not judged (no interval from one replication)")
+    else:
+        lines.append("flags: " + (", ".join(kinds) if kinds else "none"))
     return lines
 
 
@@ -284,9 +290,18 @@ def _gap_rows(frame, name_col: str, extra=()):
     return rows
 
 
+def _no_verdict(c) -> str | None:
+    """The comparison's no-verdict line, or None when its flags were judged."""
+    if getattr(c, "verdicts", True):
+        return None
+    from ..study.comparison import no_verdict
+
+    return no_verdict(c.simulation.replications)
+
+
 def comparison_text(s: Scenario, c) -> str:
     unit = s.time_unit
-    parts = ["\n".join(comparison_summary(s, c)[:-1]), flags_text(c.flags)]
+    parts = ["\n".join(comparison_summary(s, c)[:-1]), flags_text(c.flags, _no_verdict(c))]
     parts.append(format_table(
         ["transition", f"fluid rate per {unit}", "simulated [95 % interval]", "gap"],
         _gap_rows(c.gaps.transitions, "transition")))
