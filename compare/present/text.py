@@ -166,7 +166,8 @@ def simulation_text(s: Scenario, r) -> str:
     unit = s.time_unit
     n = r.replications
     head = (f"{s.name}: simulation, {n} replications of [{fmt(r.warmup)}, {fmt(r.horizon)}] {unit}, "
-            f"seed {r.seed}.\nEvery figure is a mean [95 % Student t interval] over the {n} "
+            f"seed {r.seed}.\nEvery figure is a mean [95 % Student t interval, cut at its natural "
+            f"bounds: shares and busy in [0, 1], the rest at least 0] over the {n} "
             "replications (n= marks fewer, where a replication had nothing to measure).")
     parts = [head]
     parts.append(format_table(
@@ -265,7 +266,8 @@ def comparison_summary(s: Scenario, c) -> list[str]:
     lines = [f"{s.name}: {c.simulation.replications} replications of "
              f"[{fmt(c.settings.warmup)}, {fmt(c.settings.horizon)}] {s.time_unit}, seed "
              f"{c.settings.seed}; every simulated figure is a mean [95 % interval] over the "
-             "replications.",
+             "replications (Student t, cut at its natural bounds: shares and busy in [0, 1], the "
+             "rest at least 0).",
              f"jobs ended per {s.time_unit}: fluid {fmt(out['fluid'])}, simulated "
              f"{fmt(out['mean'])} [{fmt(out['low'])}, {fmt(out['high'])}]"]
     if "abandonment" in t.index:
