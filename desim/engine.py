@@ -507,6 +507,9 @@ class Engine:
         place.left_q += 1
         place.wait_sum += w
         place.abandoned += 1
+        if job.avail < self.warmup:
+            place.left_early += 1
+            place.abandoned_early += 1
         job.waited += w
         if place.stale_timers > 2 * place.n_avail + STALE_TIMER_SLACK:
             self._drop_stale_timers()
@@ -606,6 +609,8 @@ class Engine:
         place.n_avail = n - 1
         w = now - job.avail
         place.left_q += 1
+        if job.avail < self.warmup:
+            place.left_early += 1
         if w:
             place.wait_sum += w
             job.waited += w
@@ -613,6 +618,8 @@ class Engine:
             place.zero_q += 1
         if w <= place.within:
             place.within_q += 1
+            if job.avail < self.warmup:
+                place.within_early += 1
         if place.waits_taken is not None and now >= self.warmup:
             place.waits_taken.append(w)
         t.fired += 1

@@ -104,6 +104,7 @@ class PlaceState:
         "heap", "heap_dead", "armed_at", "gen", "stale_timers", "plain", "held",
         "n_avail", "n_hold", "area", "last", "wait_sum", "abandoned", "within",
         "became_q", "left_q", "within_q", "zero_q", "waits_taken", "waits_abandoned",
+        "left_early", "abandoned_early", "within_early",
     )
 
     def __init__(self, name: str):
@@ -137,6 +138,12 @@ class PlaceState:
         self.left_q = 0  # taken or abandoned
         self.within_q = 0  # taken with a wait of at most `within`
         self.zero_q = 0  # taken with a wait of 0
+        # Of `left_q`, `abandoned` and `within_q`: the jobs that had become available before the
+        # warm-up (the run takes them out of the window's shares, which count only the jobs that
+        # became available in the window; see desim.run)
+        self.left_early = 0
+        self.abandoned_early = 0
+        self.within_early = 0
         self.waits_taken: list[float] | None = None
         self.waits_abandoned: list[float] | None = None
 

@@ -2,8 +2,9 @@
 
 Built by :func:`desim.replicate` from the per-replication :class:`~desim.run.RunResult` objects,
 kept in ``runs`` in replication order. Every figure is an :class:`~desim.estimate.Estimate` over the
-replications (mean and a 95 % Student t interval on per-replication values). Times are in the
-scenario's ``time_unit``; rates per that unit.
+replications (mean and a 95 % Student t interval on per-replication values, cut at the figure's
+natural bounds: see :data:`BOUNDS`). Times are in the scenario's ``time_unit``; rates per that
+unit.
 """
 
 from __future__ import annotations
@@ -14,7 +15,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .estimate import Estimate
+from .estimate import NON_NEGATIVE, SHARE, Estimate, interval_method
 from .run import RunResult
 from .warmup import mser5
 
@@ -26,6 +27,19 @@ __all__ = ["SimulationResult", "WarmupSuggestion", "summarize"]
 #: Metrics reported (as estimates) per kind of node; per-replication values hold a few more.
 PLACE_METRICS = ("wait", "abandoned", "queue", "served_within", "delayed")
 SOURCE_METRICS = ("arrivals", "completed", "abandoned", "abandoned_share", "total_wait")
+#: Natural bounds of each figure, by kind and metric (per-interval metrics under "interval"):
+#: shares, service levels and busy fractions lie in [0, 1]; counts, rates, waits and queues are
+#: at least 0. Every interval is cut at them (see :class:`~desim.estimate.Estimate`).
+BOUNDS = {
+    "transitions": {"rate": NON_NEGATIVE},
+    "places": {"wait": NON_NEGATIVE, "abandoned": SHARE, "queue": NON_NEGATIVE,
+               "served_within": SHARE, "delayed": SHARE},
+    "pools": {"busy": SHARE},
+    "sources": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
+                "abandoned_share": SHARE, "total_wait": NON_NEGATIVE},
+    "interval": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
+                 "service_level": SHARE, "queue": NON_NEGATIVE},
+}
 
 
 @dataclass(frozen=True)
@@ -100,12 +114,19 @@ class SimulationResult:
         ``abandoned_share``.)"""
         names = list(self.sources)
         if not names:
-            return Estimate.from_values([])
+            return Estimate.from_values([], bounds=SHARE)
         ab = np.sum([self.raw("source", s, "abandoned") for s in names], axis=0)
         done = np.sum([self.raw("source", s, "completed") for s in names], axis=0)
         ended = ab + done
         share = np.where(ended > 0, ab / np.where(ended > 0, ended, 1.0), np.nan)
-        return Estimate.from_values(share)
+        return Estimate.from_values(share, bounds=SHARE)
+
+    def interval_methods(self) -> dict:
+        """How each figure's interval was made, ``{kind: {metric: method}}`` (kind transitions,
+        places, pools, sources, or interval for the per-interval table), e.g. "student t, cut at
+        the natural bounds [0, 1]" for a share (see :data:`BOUNDS`)."""
+        return {kind: {m: interval_method(b) for m, b in metrics.items()}
+                for kind, metrics in BOUNDS.items()}
 
     def per_replication(self) -> pd.DataFrame:
         """Tidy table of every per-replication figure: replication, kind, name, metric, value."""
@@ -152,6 +173,7 @@ class SimulationResult:
             "pools": table(self.pools),
             "sources": table(self.sources),
             "intervals": intervals,
+            "interval_methods": self.interval_methods(),
             "warmup_suggestion": self.warmup_suggestion.to_json(),
             "unstable_replications": self.unstable_replications,
             "warnings": list(self.warnings),
@@ -161,9 +183,11 @@ class SimulationResult:
 def _estimates(runs: list[RunResult], kind_table: str, metrics: tuple[str, ...] | None) -> dict:
     out: dict = {}
     names = getattr(runs[0], kind_table)
+    bounds = BOUNDS.get(kind_table, {})
     for name, first in names.items():
         wanted = [m for m in (metrics or first) if m in first]
-        out[name] = {m: Estimate.from_values([getattr(r, kind_table)[name][m] for r in runs])
+        out[name] = {m: Estimate.from_values([getattr(r, kind_table)[name][m] for r in runs],
+                                             bounds=bounds.get(m))
                      for m in wanted}
     return out
 
@@ -176,7 +200,7 @@ def _interval_estimates(runs: list[RunResult]) -> pd.DataFrame | None:
     frame = pd.concat([r.intervals.assign(replication=r.replication) for r in runs])
     rows = []
     for (i, metric, name), g in frame.groupby(["interval", "metric", "name"], sort=False):
-        est = Estimate.from_values(g["value"])
+        est = Estimate.from_values(g["value"], bounds=BOUNDS["interval"].get(metric))
         rows.append((i, g["start"].iloc[0], g["end"].max(), metric, name,
                      est.mean, est.low, est.high, est.n))
     out = pd.DataFrame(rows, columns=["interval", "start", "end", "metric", "name",

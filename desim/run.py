@@ -5,8 +5,13 @@ was stopped) from cumulative counters snapshotted at the warm-up and at the end,
 job is kept unless asked for (design.md §4.2):
 
 * place ``wait``: mean time from becoming available to leaving, over tokens that left in the window;
-* place ``served_within`` (places with a service target): taken within ``within`` / became
-  available; ``abandoned``: abandoned / became available; ``queue``: time-average number
+* place ``served_within`` (places with a service target): taken within ``within`` / jobs with
+  an outcome; ``abandoned``: abandoned / jobs with an outcome. Both sides of both shares count
+  the same jobs: those that became available in the window and left the place (taken or
+  abandoned) by its end. A job that became available before the warm-up is in neither side, nor
+  is a job still waiting at the end (it has no outcome yet), so no share exceeds 1 and a pool
+  with no staff shows an abandoned share of exactly 1. ``abandoned_count`` is every abandonment
+  in the window, whenever the job became available. ``queue``: time-average number
   available and waiting; ``delayed``: not taken the instant they became available (they waited,
   or abandoned, or still wait at the end) / became available, Erlang C's P(W > 0) at a queue;
 * place ``waiting_at_warmup``, ``waiting_at_end``: jobs available and waiting at the warm-up
@@ -52,7 +57,7 @@ DEFAULT_MAX_JOBS = 1_000_000
 DEFAULT_SAMPLES = 1000
 
 _PLACE_FIELDS = ("became", "left", "wait_sum", "abandoned", "taken_within", "area",
-                 "taken_at_once")
+                 "taken_at_once", "left_early", "abandoned_early", "within_early")
 _SOURCE_FIELDS = ("arrived", "completed", "abandoned", "wait_sum")
 
 
@@ -121,7 +126,7 @@ def _snapshot(net: Net, now: float) -> np.ndarray:
     values: list[float] = []
     for p in net.places.values():
         values += (p.became, p.left, p.wait_sum, p.abandoned, p.taken_within, p.area_at(now),
-                   p.taken_at_once)
+                   p.taken_at_once, p.left_early, p.abandoned_early, p.within_early)
     for r in net.pools.values():
         values += r.areas_at(now)
     values += (t.firings for t in net.transitions)
@@ -166,13 +171,16 @@ def _window_stats(scenario: Scenario, net: Net, delta: np.ndarray, length: float
     }
     places = {}
     for name, d in places_d.items():
+        # (the shares count the same jobs on both sides: those that became available in the
+        # window and left it, taken or abandoned, by its end)
+        outcomes = d["left"] - d["left_early"]
         m = {
             "wait": _ratio(d["wait_sum"], d["left"]),
-            "abandoned": _ratio(d["abandoned"], d["became"]),
+            "abandoned": _ratio(d["abandoned"] - d["abandoned_early"], outcomes),
             "queue": _ratio(d["area"], length),
         }
         if name in scenario.targets.service:
-            m["served_within"] = _ratio(d["taken_within"], d["became"])
+            m["served_within"] = _ratio(d["taken_within"] - d["within_early"], outcomes)
         m["delayed"] = _ratio(d["became"] - d["taken_at_once"], d["became"])
         m.update(became=int(d["became"]), left=int(d["left"]), abandoned_count=int(d["abandoned"]))
         places[name] = m

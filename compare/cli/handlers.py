@@ -222,12 +222,12 @@ def phases(args) -> Outcome:
     ranges = _parse_ranges(args.range, s)
     if args.simulate:
         # bad flags (or a run too long) stop before the diagram is drawn
-        checked_settings(args, s.run, _arrivals(s), 49)
+        checked_settings(args, s.run, _arrivals(s), 49, min_replications=2)
     diagram = phase_diagram(s, tuple(args.axes), of=args.of, ranges=ranges or None)
     overlay = None
     if args.simulate:
-        with simulation(args, s.run, runs_per_replication=49,
-                        arrivals=_arrivals(s)) as (settings, progress):
+        with simulation(args, s.run, runs_per_replication=49, arrivals=_arrivals(s),
+                        min_replications=2) as (settings, progress):
             overlay = phase_overlay(s, diagram, settings, progress=progress)
     doc = diagram.to_json()
     if overlay is not None:
@@ -248,8 +248,11 @@ def staff(args) -> Outcome:
 
     s = load(args)
     costs = _parse_costs(args.cost, s)
+    # (the search judges each staffing by the intervals of its targets: it needs two runs or
+    # more; the fluid-only search simulates nothing)
     with simulation(args, s.run, runs_per_replication=10, quiet=args.fluid_only,
-                    arrivals=None if args.fluid_only else _arrivals(s)) as (settings, progress):
+                    arrivals=None if args.fluid_only else _arrivals(s),
+                    min_replications=1 if args.fluid_only else 2) as (settings, progress):
         result = staff_search(s, settings, costs=costs, progress=progress,
                               fluid_only=args.fluid_only)
     doc = result.to_json()

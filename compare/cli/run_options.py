@@ -58,11 +58,18 @@ def settings_from_flags(args, run) -> SimulationSettings:
 
 
 def checked_settings(args, run, arrivals: Callable[[float], float] | None = None,
-                     volume: float = 1.0) -> SimulationSettings:
+                     volume: float = 1.0, min_replications: int = 1) -> SimulationSettings:
     """:func:`settings_from_flags`, and with ``arrivals(horizon)`` (expected arrivals of one run
     over ``horizon``) the refusal of a command whose ``arrivals × replications × volume``
-    exceeds ``--max-arrivals`` (``volume``: runs per replication weighted by their volume)."""
+    exceeds ``--max-arrivals`` (``volume``: runs per replication weighted by their volume).
+    ``min_replications``: refuse fewer replications (from --reps or the scenario's
+    run.replications); 2 for a command whose verdicts rest on intervals."""
     settings = settings_from_flags(args, run)
+    if settings.replications < min_replications:
+        given = "" if args.reps is not None else ", from the scenario's run.replications"
+        raise InputError(f"fluidgap {args.command}: --reps must be >= {min_replications} for an "
+                         f"interval, and its verdicts need one (got {settings.replications}"
+                         f"{given})")
     if arrivals is not None:
         from desim.settings import SettingsError, check_workload
 
@@ -75,14 +82,16 @@ def checked_settings(args, run, arrivals: Callable[[float], float] | None = None
 
 @contextmanager
 def simulation(args, run, *, runs_per_replication: int = 1, quiet: bool = False,
-               arrivals: Callable[[float], float] | None = None, volume: float | None = None):
+               arrivals: Callable[[float], float] | None = None, volume: float | None = None,
+               min_replications: int = 1):
     """``(settings, progress)`` for a command that simulates: the settings from the flags with
     the executor asked for (``--dask``) in them, and a progress bar over
     ``replications × runs_per_replication`` runs (none with ``--quiet`` or ``quiet``).
-    ``arrivals`` and ``volume`` (default ``runs_per_replication``): see
+    ``arrivals``, ``volume`` (default ``runs_per_replication``) and ``min_replications``: see
     :func:`checked_settings`; the check comes before anything runs."""
     settings = checked_settings(args, run, arrivals,
-                                runs_per_replication if volume is None else volume)
+                                runs_per_replication if volume is None else volume,
+                                min_replications)
     total = settings.replications * runs_per_replication
     with Progress(total, args.quiet or quiet) as progress, executor(args) as ex:
         yield (settings if ex is None else settings.with_changes(executor=ex)), progress

@@ -199,7 +199,8 @@ def simulation_text(s: Scenario, r) -> str:
     unit = s.time_unit
     n = r.replications
     head = (f"{s.name}: simulation, {n} replications of [{fmt(r.warmup)}, {fmt(r.horizon)}] {unit}, "
-            f"seed {r.seed}.\nEvery figure is a mean [95 % Student t interval] over the {n} "
+            f"seed {r.seed}.\nEvery figure is a mean [95 % Student t interval, cut at its natural "
+            f"bounds: shares and busy in [0, 1], the rest at least 0] over the {n} "
             "replications (n= marks fewer, where a replication had nothing to measure).")
     parts = [head]
     parts.append(format_table(
@@ -259,9 +260,12 @@ def _pct(x: float) -> str:
     return fmt(100 * x, 3) + " %"
 
 
-def flags_text(flags) -> str:
+def flags_text(flags, no_verdict: str | None = None) -> str:
     """Flags grouped by kind; a throughput shortfall inherited by many transitions downstream
-    is listed once with the transitions it reaches."""
+    is listed once with the transitions it reaches. ``no_verdict``: the line said instead when
+    no flag was judged (fewer than two replications)."""
+    if no_verdict is not None:
+        return no_verdict
     if not flags:
         return "flags: none (the fluid answer holds within the simulation's intervals)"
     import textwrap
@@ -295,7 +299,8 @@ def comparison_summary(s: Scenario, c) -> list[str]:
     lines = [f"{s.name}: {c.simulation.replications} replications of "
              f"[{fmt(c.settings.warmup)}, {fmt(c.settings.horizon)}] {s.time_unit}, seed "
              f"{c.settings.seed}; every simulated figure is a mean [95 % interval] over the "
-             "replications.",
+             "replications (Student t, cut at its natural bounds: shares and busy in [0, 1], the "
+             "rest at least 0).",
              f"jobs ended per {s.time_unit}: fluid {fmt(out['fluid'])}, simulated "
              f"{fmt(out['mean'])} [{fmt(out['low'])}, {fmt(out['high'])}]"]
     if "abandonment" in t.index:
@@ -303,7 +308,10 @@ def comparison_summary(s: Scenario, c) -> list[str]:
         lines.append(f"abandonment: fluid {_pct(ab['fluid'])}, simulated {_pct(ab['mean'])} "
                      f"[{_pct(ab['low'])}, {_pct(ab['high'])}]")
     kinds = sorted({f.kind for f in c.flags})
-    lines.append("flags: " + (", ".join(kinds) if kinds else "none"))
+    if not getattr(c, "verdicts", True):
+        lines.append("flags: not judged (no interval from one replication)")
+    else:
+        lines.append("flags: " + (", ".join(kinds) if kinds else "none"))
     return lines
 
 
@@ -316,9 +324,19 @@ def _gap_rows(frame, name_col: str, extra=()):
     return rows
 
 
+def _no_verdict(c) -> str | None:
+    """The comparison's no-verdict line, or None when its flags were judged."""
+    if getattr(c, "verdicts", True):
+        return None
+    from ..study.comparison import no_verdict
+
+    return no_verdict(c.simulation.replications)
+
+
 def comparison_text(s: Scenario, c) -> str:
     unit = s.time_unit
-    parts = ["\n".join(comparison_summary(s, c)[:-1]), flags_text(c.flags), GAP_CONVENTION]
+    parts = ["\n".join(comparison_summary(s, c)[:-1]), flags_text(c.flags, _no_verdict(c)),
+             GAP_CONVENTION]
     parts.append(format_table(
         ["transition", f"fluid rate per {unit}", "simulated [95 % interval]", "gap"],
         _gap_rows(c.gaps.transitions, "transition")))

@@ -36,7 +36,8 @@ class Comparison:
     :class:`desim.SimulationResult`; ``gaps``: :class:`compare.gaps.Gaps`; ``flags``: tuple of
     :class:`compare.flags.Flag`; ``transient``: the per-interval table (columns interval, start,
     end, metric, name, fluid, mean, low, high, n) or None; ``settings``: the simulation settings
-    used; ``notes``: caveats."""
+    used; ``notes``: caveats; ``verdicts``: False with fewer than two replications, where no
+    interval exists and so no flag is judged (``flags`` is empty and says nothing)."""
 
     scenario_name: str
     time_unit: str
@@ -49,6 +50,7 @@ class Comparison:
     interval: float | None = None
     notes: tuple[str, ...] = ()
     scenario: Scenario | None = field(default=None, repr=False, compare=False)
+    verdicts: bool = True
 
     def flags_of(self, kind: str) -> tuple[Flag, ...]:
         return tuple(f for f in self.flags if f.kind == kind)
@@ -63,8 +65,9 @@ class Comparison:
     def to_json(self) -> dict:
         """``{"scenario", "time_unit", "settings", "fluid", "simulation", "gaps", "gap_convention",
         "flags", "transient", "interval", "notes"}`` (design.md §5; ``gap_convention``: the one
-        sign convention of every gap, :data:`compare.study.gap.GAP_CONVENTION`); nan and inf
-        become null."""
+        sign convention of every gap, :data:`compare.study.gap.GAP_CONVENTION`), and
+        ``"verdicts"`` (False: fewer than two replications, flags not judged); nan and inf become
+        null."""
         transient = None
         if self.transient is not None:
             transient = json_ready(self.transient.to_dict("records"))
@@ -80,6 +83,7 @@ class Comparison:
             "transient": transient,
             "interval": self.interval,
             "notes": list(self.notes),
+            "verdicts": self.verdicts,
         }
 
 
@@ -109,7 +113,12 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
     fluid = throughput(scenario, window=settings.window)
     sim = replicate(scenario, settings=settings, progress=progress, record_waits=record_waits)
     gaps = gap_tables(scenario, fluid, sim)
-    flags = find_flags(scenario, fluid, sim, gaps)
+    # (with one replication every interval is empty, so no flag could fire: "no flags" would
+    # read as a verdict; none is given instead)
+    verdicts = sim.replications >= MIN_REPLICATIONS_FOR_VERDICTS
+    flags = find_flags(scenario, fluid, sim, gaps) if verdicts else ()
+    if not verdicts:
+        notes.append(no_verdict(sim.replications))
     transient = None
     if sim.intervals is not None:
         transient = transient_table(scenario, sim.intervals, fluid.counters, settings.horizon)
@@ -124,5 +133,16 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
     return Comparison(
         scenario_name=scenario.name, time_unit=scenario.time_unit, settings=settings,
         fluid=fluid, simulation=sim, gaps=gaps, flags=flags, transient=transient,
-        interval=interval, notes=tuple(notes), scenario=scenario,
+        interval=interval, notes=tuple(notes), scenario=scenario, verdicts=verdicts,
     )
+
+
+#: Replications needed for an interval, and so for a flag.
+MIN_REPLICATIONS_FOR_VERDICTS = 2
+
+
+def no_verdict(replications: int) -> str:
+    """The line said instead of flags when ``replications`` give no interval."""
+    word = "replication" if replications == 1 else "replications"
+    return (f"{replications} {word}: no interval, so no verdict; flags not judged "
+            f"(give --reps {MIN_REPLICATIONS_FOR_VERDICTS} or more)")
