@@ -53,8 +53,9 @@ __all__ = ["RunStore", "StoreError", "FolderLock", "FORMAT", "run_from_json", "r
            "scenario_fingerprint", "write_atomic"]
 
 #: Version of the file layout; a directory written with another layout is refused.
-#: 2: the manifest records the sha256 of every replication file.
-FORMAT = 2
+#: 2: the manifest records the sha256 of every replication file; 3: window shares count the
+#: same jobs in numerator and denominator (a run of layout 2 would mix the two definitions).
+FORMAT = 3
 MANIFEST = "manifest.json"
 SUMMARY = "summary.json"
 JOURNAL = ".checksums.journal"

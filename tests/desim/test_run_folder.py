@@ -23,7 +23,7 @@ import pytest
 from compare.cli.main import main
 from desim import replicate
 from desim.run_folder import LOCK, FolderLock
-from desim.store import MANIFEST, SUMMARY, RunStore, StoreError
+from desim.store import FORMAT, MANIFEST, SUMMARY, RunStore, StoreError
 
 from .test_store import DESK
 
@@ -156,7 +156,7 @@ def test_the_manifest_records_the_sha256_of_every_replication_file(net, tmp_path
 
     replicate(net(DESK), reps=3, horizon=100, workers=1, out=tmp_path)
     manifest = json.loads((tmp_path / MANIFEST).read_text())
-    assert manifest["format"] == 2
+    assert manifest["format"] == FORMAT
     assert manifest["checksums"] == {
         f"rep-{r:06d}.json": hashlib.sha256((tmp_path / f"rep-{r:06d}.json").read_bytes())
         .hexdigest() for r in range(3)}
@@ -257,7 +257,7 @@ def test_a_run_folder_of_the_earlier_layout_is_refused(net, tmp_path):
     del manifest["checksums"]
     (tmp_path / MANIFEST).write_text(json.dumps(manifest))
     with pytest.raises(StoreError, match="holds a run with file layout 1, this run has file "
-                                         "layout 2"):
+                                         f"layout {FORMAT}"):
         replicate(s, reps=2, horizon=100, workers=1, out=tmp_path, resume=True)
 
 
