@@ -55,6 +55,7 @@ __all__ = ["Engine", "ConservationError", "SimulationError", "ClockStopped", "Pa
 _FIRST = 0  # snapshots and the end of a run (SimPy's URGENT): before the rest of an instant
 _NORMAL = 1
 _LATE = 2  # after every normal event at the same instant (patience deadlines)
+_OUTCOME_INDEX = {"served": 0, "abandoned": 1, "lost": 2}  # SourceState.ended_new
 
 #: Superseded patience timers of a place allowed in the event queue beyond twice its jobs waiting.
 STALE_TIMER_SLACK = 16
@@ -114,7 +115,9 @@ class Engine:
     than this. ``trace``: a list that collects ``(time, what, name, job_id)`` for every arrival
     ("arrive", source), firing ("fire", transition) and abandonment ("abandon", place); None (the
     default) records nothing. ``records``: a list collecting job records ``(id, source, arrival,
-    end, outcome)`` with outcome ``"completed:<transition>"`` or ``"abandoned:<place>"``, or None.
+    end, outcome)`` with outcome ``"completed:<transition>"`` (served), ``"abandoned:<where>"`` or
+    ``"lost:<where>"`` (where: a place whose patience ran out, or a transition marked with that
+    outcome), or None.
     ``warmup``: waits are recorded (with ``record_waits`` nets) from this time on.
     ``events_at_one_instant``: a run whose clock stays at one instant for more events than
     this raises :class:`ClockStopped` (checked once per that many events: the clock has not
@@ -141,7 +144,8 @@ class Engine:
         self.spare: list[Job] = []  # job objects of ended jobs, for reuse
         self.alive = 0
         self.completed = 0
-        self.abandoned = 0
+        self.abandoned = 0  # jobs ended unserved (abandoned or lost)
+        self.lost = 0  # of those, the lost ones
         self.trans = net.transitions
         self.unstable = False
         self.timed_places = tuple(p for p in net.places.values() if p.patience is not None)
@@ -233,17 +237,19 @@ class Engine:
                     out = t.out_place
                     if out is not None:
                         bits |= self._enter(out, ev, now)
-                    elif records is None:  # _end inline
+                    elif records is None and t.outcome == "served":  # _end inline
                         self.alive -= 1
                         src = ev.source
                         src.completed += 1
                         self.completed += 1
+                        if ev.arrival >= warmup:
+                            src.ended_new[0] += 1
                         w = ev.waited
                         if w:
                             src.wait_sum += w
                         spare.append(ev)
                     else:
-                        self._end(ev, now, True, t.name)
+                        self._end(ev, now, t.outcome, t.name)
                     if bits:
                         t = served.quick if served is not None and out is None else None
                         if t is None:
@@ -269,9 +275,9 @@ class Engine:
                     self.unstable = True
                     break
                 job = spare.pop() if spare else new(Job)
-                if ids is not None:  # (ids and arrival times are read by traces and records only)
+                if ids is not None:  # (ids are read by traces and records only)
                     job.id = next(ids)
-                    job.arrival = now
+                job.arrival = now
                 job.source = ev
                 job.waited = 0.0
                 self.alive += 1
@@ -338,7 +344,7 @@ class Engine:
                         bits |= pool.give(k, now)
                 out = t.out_place
                 if out is None:
-                    self._end(job, now, True, t.name)
+                    self._end(job, now, t.outcome, t.name)
                 elif out.held is not None:  # _enter inline
                     job.fifo = out.held
                     out.n_hold += 1
@@ -466,7 +472,7 @@ class Engine:
         if t.out_place is not None:
             bits |= self._enter(t.out_place, job, now)
         else:
-            self._end(job, now, True, t.name)
+            self._end(job, now, t.outcome, t.name)
         return bits
 
     def _arm(self, place: PlaceState, deadline: float, now: float) -> None:
@@ -519,22 +525,29 @@ class Engine:
             self.trace.append((now, "abandon", place.name, job.id))
         if place.abandon_to is not None:
             return self._enter(place.abandon_to, job, now)
-        self._end(job, now, False, place.name)
+        self._end(job, now, "lost" if place.loses else "abandoned", place.name)
         return 0
 
-    def _end(self, job: Job, now: float, completed: bool, where: str) -> None:
+    def _end(self, job: Job, now: float, outcome: str, where: str) -> None:
+        """``job`` ends at ``where`` (a transition or a place) as ``outcome`` for its caller:
+        served, abandoned or lost (the last two both count as abandoned in the totals)."""
         self.alive -= 1
         src = job.source
-        if completed:
+        if outcome == "served":
             src.completed += 1
             self.completed += 1
         else:
             src.abandoned += 1
             self.abandoned += 1
+            if outcome == "lost":
+                src.lost += 1
+                self.lost += 1
+        if job.arrival >= self.warmup:
+            src.ended_new[_OUTCOME_INDEX[outcome]] += 1
         src.wait_sum += job.waited
         if self.records is not None:
-            outcome = ("completed:" if completed else "abandoned:") + where
-            self.records.append((job.id, src.name, job.arrival, now, outcome))
+            kind = "completed:" if outcome == "served" else outcome + ":"
+            self.records.append((job.id, src.name, job.arrival, now, kind + where))
         # Stale entries of a patience heap may still point at the object: their stamps can never
         # match the stamps it gets in a later life.
         self.spare.append(job)

@@ -40,7 +40,7 @@ INF = math.inf
 
 class Job:
     """One job (the engine makes it without ``__init__`` and reuses it once the job has ended):
-    ``id``, ``source``, ``arrival`` (set only when a trace or job records are kept), ``waited``
+    ``id`` (set only when a trace or job records are kept), ``source``, ``arrival``, ``waited``
     (total time available-and-waiting over all places), ``fifo`` (the FIFO it is in or about to
     enter), ``avail`` (when it became available there), ``stamp`` (its current stay as an
     available token of a place with patience; -1 once it has left such a place)."""
@@ -104,7 +104,7 @@ class PlaceState:
         "heap", "heap_dead", "armed_at", "gen", "stale_timers", "plain", "held",
         "n_avail", "n_hold", "area", "last", "wait_sum", "abandoned", "within",
         "became_q", "left_q", "within_q", "zero_q", "waits_taken", "waits_abandoned",
-        "left_early", "abandoned_early", "within_early",
+        "left_early", "abandoned_early", "within_early", "loses",
     )
 
     def __init__(self, name: str):
@@ -116,6 +116,7 @@ class PlaceState:
         self.fifo: Fifo | None = None  # the single FIFO of a place without route
         self.patience: Iterator[float] | None = None
         self.abandon_to: PlaceState | None = None
+        self.loses = False  # patience 0: a job not taken at once is lost, not abandoned
         self.heap: list | None = None  # (deadline, stamp, job), lazily deleted
         self.heap_dead = 0
         self.armed_at = INF  # time of the one patience timer that counts
@@ -265,7 +266,7 @@ class PoolState:
 
 class TransitionState:
     __slots__ = ("name", "bit", "fifo", "takes", "out_place", "gives", "fired", "take1",
-                 "weight1", "give1", "given1")
+                 "weight1", "give1", "given1", "outcome")
 
     def __init__(self, name: str, bit: int):
         self.name = name
@@ -280,6 +281,7 @@ class TransitionState:
         self.weight1 = 0
         self.give1: PoolState | None = None  # ... and when it gives to one pool
         self.given1 = 0
+        self.outcome = "served"  # how a job that ends here ends for its caller
 
     @property
     def firings(self) -> int:
@@ -297,7 +299,7 @@ class SourceState:
     None."""
 
     __slots__ = ("name", "place", "spacing", "next_time", "arrived", "completed", "abandoned",
-                 "wait_sum")
+                 "wait_sum", "lost", "ended_new")
 
     def __init__(self, name: str, place: PlaceState, clock: ArrivalClock):
         self.name = name
@@ -306,8 +308,12 @@ class SourceState:
         self.next_time: Callable[[float], float] = clock.next_time
         self.arrived = 0
         self.completed = 0
-        self.abandoned = 0
+        self.abandoned = 0  # every job that ended unserved (abandoned or lost)
         self.wait_sum = 0.0
+        self.lost = 0  # of those, the jobs lost (turned away)
+        # per-caller outcomes (served, abandoned, lost) of jobs that arrived at or after the
+        # engine's warm-up, counted when they end
+        self.ended_new = [0, 0, 0]
 
 
 class Net:
@@ -387,6 +393,7 @@ def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: 
             ps.patience = block_draws(
                 p.patience.sample, stream_rng(seed, replication, "patience", p.name), block)
             ps.heap = []
+            ps.loses = p.patience.mean == 0  # (patience is never negative)
         target = scenario.targets.service.get(p.name)
         if target is not None:
             ps.within = target.within
@@ -430,6 +437,7 @@ def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: 
         ts.gives = tuple((pools[n], w) for n, w in t.outputs.items() if n in pools)
         out = scenario.job_output(t.name)
         ts.out_place = places[out] if out is not None else None
+        ts.outcome = t.outcome
 
     sources: dict[str, SourceState] = {}
     for s in scenario.sources.values():

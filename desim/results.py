@@ -26,7 +26,11 @@ __all__ = ["SimulationResult", "WarmupSuggestion", "summarize"]
 
 #: Metrics reported (as estimates) per kind of node; per-replication values hold a few more.
 PLACE_METRICS = ("wait", "abandoned", "queue", "served_within", "delayed")
-SOURCE_METRICS = ("arrivals", "completed", "abandoned", "abandoned_share", "total_wait")
+SOURCE_METRICS = ("arrivals", "completed", "abandoned", "abandoned_share", "total_wait", "lost",
+                  "callers_served", "callers_abandoned", "callers_lost")
+#: The per-caller outcome shares among SOURCE_METRICS, by outcome (the JSON's ``outcomes``).
+CALLER_OUTCOMES = {"served": "callers_served", "abandoned": "callers_abandoned",
+                   "lost": "callers_lost"}
 #: Natural bounds of each figure, by kind and metric (per-interval metrics under "interval"):
 #: shares, service levels and busy fractions lie in [0, 1]; counts, rates, waits and queues are
 #: at least 0. Every interval is cut at them (see :class:`~desim.estimate.Estimate`).
@@ -36,10 +40,13 @@ BOUNDS = {
                "served_within": SHARE, "delayed": SHARE},
     "pools": {"busy": SHARE},
     "sources": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
-                "abandoned_share": SHARE, "total_wait": NON_NEGATIVE},
+                "abandoned_share": SHARE, "total_wait": NON_NEGATIVE, "lost": NON_NEGATIVE,
+                "callers_served": SHARE, "callers_abandoned": SHARE, "callers_lost": SHARE},
     "interval": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
                  "service_level": SHARE, "queue": NON_NEGATIVE},
 }
+
+_CALLER_METRICS = frozenset(CALLER_OUTCOMES.values())
 
 
 @dataclass(frozen=True)
@@ -75,7 +82,9 @@ class SimulationResult:
     ``transitions`` {t: {"rate"}}, ``places`` {p: {"wait", "abandoned", "queue",
     "served_within" (places with a target only), "delayed" (share not taken the instant they
     became available: P(W > 0))}}, ``pools`` {r: {"busy"}}, ``sources``
-    {s: {"arrivals", "completed", "abandoned", "abandoned_share", "total_wait"}}: each value an
+    {s: {"arrivals", "completed", "abandoned", "abandoned_share", "total_wait", "lost",
+    "callers_served", "callers_abandoned", "callers_lost"}} (see :mod:`desim.run`; the JSON
+    gathers the three caller shares under ``outcomes``): each value an
     :class:`Estimate`. ``intervals``: tidy per-interval table (columns interval, start, end,
     metric, name, mean, low, high, n) or None. ``unstable``: per-replication flags of runs stopped
     at the job limit; ``unstable_replications`` their count. ``runs``: the per-replication results.
@@ -148,6 +157,16 @@ class SimulationResult:
                     rows.append((kind, name, metric, est.mean, est.low, est.high, est.n))
         return pd.DataFrame(rows, columns=["kind", "name", "metric", "mean", "low", "high", "n"])
 
+    def _sources_json(self) -> dict:
+        """Per source its figures, the per-caller shares gathered under ``outcomes``."""
+        out = {}
+        for name, metrics in self.sources.items():
+            doc = {m: e.to_json() for m, e in metrics.items() if m not in _CALLER_METRICS}
+            doc["outcomes"] = {k: metrics[m].to_json() for k, m in CALLER_OUTCOMES.items()
+                               if m in metrics}
+            out[name] = doc
+        return out
+
     def to_json(self) -> dict:
         """The ``simulate --json`` document (design.md §5), with more keys; nan becomes null."""
 
@@ -171,7 +190,7 @@ class SimulationResult:
             "transitions": table(self.transitions),
             "places": table(self.places),
             "pools": table(self.pools),
-            "sources": table(self.sources),
+            "sources": self._sources_json(),
             "intervals": intervals,
             "interval_methods": self.interval_methods(),
             "warmup_suggestion": self.warmup_suggestion.to_json(),

@@ -22,9 +22,15 @@ job is kept unless asked for (design.md §4.2):
 * transition ``rate``: firings per time unit;
 * pool ``busy``: busy agent-time / on-duty agent-time (with a fixed staff: the time-average
   fraction of staff not available);
-* source ``arrivals``, ``completed``, ``abandoned`` (counts in the window), ``abandoned_share``
-  (abandoned / jobs that ended in the window), ``total_wait`` (mean total waiting time of the jobs
-  that ended in the window, over all the places they waited in).
+* source ``arrivals``, ``completed`` (jobs that ended served), ``abandoned`` (jobs that ended
+  unserved: by patience with no ``abandon_to``, or at a transition marked ``outcome: abandoned``
+  or ``lost``), ``lost`` (of those, the lost ones: patience 0, or marked lost) (counts in the
+  window), ``abandoned_share`` (abandoned / jobs that ended in the window), ``total_wait`` (mean
+  total waiting time of the jobs that ended in the window, over all the places they waited in);
+* source per-caller outcomes (however many visits a caller made, e.g. through a redial loop):
+  ``callers_ended``, the jobs that arrived in the window and ended by its end, and
+  ``callers_served``, ``callers_abandoned``, ``callers_lost``, the shares of them that ended
+  each way (they sum to 1).
 
 All times are in the scenario's time unit.
 """
@@ -38,7 +44,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from fluid.scenario import Limits, Scenario
+from fluid.scenario import OUTCOMES, Limits, Scenario
 from fluid.structure import waiting_places
 
 from .engine import EVENTS_AT_ONE_INSTANT, Engine
@@ -58,7 +64,8 @@ DEFAULT_SAMPLES = 1000
 
 _PLACE_FIELDS = ("became", "left", "wait_sum", "abandoned", "taken_within", "area",
                  "taken_at_once", "left_early", "abandoned_early", "within_early")
-_SOURCE_FIELDS = ("arrived", "completed", "abandoned", "wait_sum")
+_SOURCE_FIELDS = ("arrived", "completed", "abandoned", "wait_sum", "lost", "served_new",
+                  "abandoned_new", "lost_new")
 
 
 @dataclass(frozen=True)
@@ -131,7 +138,7 @@ def _snapshot(net: Net, now: float) -> np.ndarray:
         values += r.areas_at(now)
     values += (t.firings for t in net.transitions)
     for s in net.sources.values():
-        values += (s.arrived, s.completed, s.abandoned, s.wait_sum)
+        values += (s.arrived, s.completed, s.abandoned, s.wait_sum, s.lost, *s.ended_new)
     return np.array(values, dtype=float)
 
 
@@ -149,8 +156,8 @@ def _split(net: Net, snap: np.ndarray) -> tuple[dict, dict, dict, dict]:
         trans[t.name] = snap[i]
         i += 1
     for name in net.sources:
-        sources[name] = dict(zip(_SOURCE_FIELDS, snap[i:i + 4]))
-        i += 4
+        sources[name] = dict(zip(_SOURCE_FIELDS, snap[i:i + len(_SOURCE_FIELDS)]))
+        i += len(_SOURCE_FIELDS)
     return places, pools, trans, sources
 
 
@@ -194,7 +201,13 @@ def _window_stats(scenario: Scenario, net: Net, delta: np.ndarray, length: float
             "abandoned": int(d["abandoned"]),
             "abandoned_share": _ratio(d["abandoned"], ended),
             "total_wait": _ratio(d["wait_sum"], ended),
+            "lost": int(d["lost"]),
         }
+        # per caller: the callers that arrived in the window and ended by its end, however many
+        # visits they made, by how they ended (the same callers on both sides of each share)
+        callers = d["served_new"] + d["abandoned_new"] + d["lost_new"]
+        sources[name].update(callers_ended=int(callers),
+                             **{f"callers_{k}": _ratio(d[f"{k}_new"], callers) for k in OUTCOMES})
     return transitions, places, pools, sources
 
 

@@ -25,6 +25,7 @@ from .errors import FieldError, ScenarioError, printable
 from .fields import LARGEST_NUMBER, name as _name, number as _real, whole as _whole
 from .scenario import (
     LARGEST_SEED,
+    OUTCOMES,
     FrozenMap,
     Limits,
     Place,
@@ -277,6 +278,7 @@ def _build(doc: Mapping, file: str, base_dir: str | None, limits: Limits,
                                 span, limits)
                for n, spec in sources_doc.items()}
     transitions = {n: _build_transition(n, spec) for n, spec in transitions_doc.items()}
+    _check_outcomes(transitions_doc, places)
     targets = _build_targets(_mapping(doc.get("targets"), "targets"))
     try:
         document = json.dumps(doc)
@@ -437,12 +439,28 @@ def _arcs(value: Any, path: str) -> FrozenMap:
 def _build_transition(name: str, spec: Any) -> Transition:
     path = f"transitions.{name}"
     spec = _mapping(spec, path, allow_none=False)
-    _known_keys(spec, ("in", "out"), path)
+    _known_keys(spec, ("in", "out", "outcome"), path)
     if "in" not in spec:
         raise FieldError(f"{path}.in", "is required")
+    outcome = spec.get("outcome", "served")
+    if not isinstance(outcome, str) or outcome not in OUTCOMES:
+        raise FieldError(f"{path}.outcome", f"must be one of: {', '.join(OUTCOMES)}", outcome)
     return Transition(
-        name, inputs=_arcs(spec["in"], f"{path}.in"), outputs=_arcs(spec.get("out", []), f"{path}.out")
+        name, inputs=_arcs(spec["in"], f"{path}.in"), outputs=_arcs(spec.get("out", []), f"{path}.out"),
+        outcome=outcome,
     )
+
+
+
+def _check_outcomes(transitions_doc: Mapping, places: Mapping[str, Place]) -> None:
+    """An ``outcome`` is said only of a transition that ends jobs (no place among its outputs)."""
+    for name, spec in transitions_doc.items():
+        if "outcome" in spec:
+            kept = [n for n in _arcs(spec.get("out", []), f"transitions.{name}.out") if n in places]
+            if kept:
+                raise FieldError(f"transitions.{name}.outcome", "is only for a transition that "
+                                 f"ends jobs, but this one moves them on to place {kept[0]}")
+
 
 
 def _build_targets(spec: dict) -> Targets:

@@ -35,7 +35,11 @@ __all__ = [
     "Limits",
     "LIMIT_FLAGS",
     "LARGEST_SEED",
+    "OUTCOMES",
 ]
+
+#: How a job can end for its caller: taken and served, abandoned, or lost (turned away).
+OUTCOMES = ("served", "abandoned", "lost")
 
 #: The largest run seed (numpy's SeedSequence takes any whole number; 128 bits is plenty).
 LARGEST_SEED = 2**128 - 1
@@ -184,11 +188,14 @@ class Place:
 
 @dataclass(frozen=True)
 class Transition:
-    """Consumes ``inputs`` (name -> arc weight) and produces ``outputs`` (name -> arc weight)."""
+    """Consumes ``inputs`` (name -> arc weight) and produces ``outputs`` (name -> arc weight).
+    ``outcome``: how a job that ends here ends for its caller (one of :data:`OUTCOMES`; only a
+    transition whose outputs hold no place, one that ends jobs, can be other than served)."""
 
     name: str
     inputs: FrozenMap
     outputs: FrozenMap
+    outcome: str = "served"
 
 
 @dataclass(frozen=True)

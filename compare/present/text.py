@@ -226,6 +226,14 @@ def simulation_text(s: Scenario, r) -> str:
             [[name, _est(v["arrivals"], n), _est(v["completed"], n),
               _est(v["abandoned_share"], n), _est(v["total_wait"], n)]
              for name, v in r.sources.items()]))
+        if any("callers_served" in v for v in r.sources.values()):
+            parts.append(format_table(
+                ["source", "served", "abandoned", "lost"],
+                [[name] + [_est(v[m], n) if m in v else "-"
+                           for m in ("callers_served", "callers_abandoned", "callers_lost")]
+                 for name, v in r.sources.items()],
+                title="per caller (shares of the callers who arrived in the window and ended "
+                      "by its end, each counted once):"))
     if r.intervals is not None:
         rows = [[f"{fmt(row.start)}-{fmt(row.end)}", row.metric, row.name,
                  _est(_Row(row.mean, row.low, row.high, int(row.n)), n)]

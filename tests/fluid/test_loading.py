@@ -156,7 +156,26 @@ INVALID = [
     ("places.calls", {}, "sources.calls", "already used by places.calls"),
     ("sources.calls", {"rate": 1.0, "profile": {"step": 1, "rates": [1]}, "into": "queue"},
      "sources.calls", "exactly one of"),
+    ("transitions.close.outcome", "gone", "transitions.close.outcome", "must be one of: served"),
+    ("transitions.close.outcome", 1, "transitions.close.outcome", "must be one of"),
+    ("transitions.escalate.outcome", "abandoned", "transitions.escalate.outcome",
+     "only for a transition that ends jobs"),
+    ("transitions.answer.outcome", "served", "transitions.answer.outcome",
+     "moves them on to place talk"),
 ]
+
+
+def test_outcome_marks_a_job_ending_transition():
+    """``outcome`` (design.md §3): default served; abandoned or lost on a transition whose
+    outputs hold no place (close gives its agent back and ends the job)."""
+    assert load_scenario_text(BASE).transitions["close"].outcome == "served"
+    for outcome in ("served", "abandoned", "lost"):
+        doc = base_doc()
+        doc["transitions"]["close"]["outcome"] = outcome
+        s = load_doc(doc)
+        assert s.transitions["close"].outcome == outcome
+        assert s.transitions["second_done"].outcome == "served"
+        assert with_changes(s, {"pools.agents": 4}).transitions["close"].outcome == outcome
 
 
 @pytest.mark.parametrize("path,value,field,words", INVALID, ids=[f"{p}->{w}" for p, _, _, w in INVALID])
