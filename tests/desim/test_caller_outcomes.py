@@ -145,3 +145,11 @@ def test_per_visit_abandonment_exceeds_per_caller():
         ended = [o for *_, arrival, end, o in r.jobs if end >= s.run.warmup]
         assert src["completed"] == sum(o.startswith("completed:") for o in ended)
         assert src["abandoned"] == sum(o == "abandoned:give_up" for o in ended)
+
+
+def test_outcomes_agree_with_and_without_shortcuts():
+    """The engine's shortcuts end jobs as the general path does (same figures to the last bit)."""
+    s = redial(2, "{dist: exponential, mean: 0.5}", horizon=500.0, give_up="lost")
+    fast, slow = run_replication(s, 1), run_replication(s, 1, shortcuts=False)
+    assert fast.sources == slow.sources and fast.totals == slow.totals
+    assert fast.sources["calls"]["callers_lost"] > 0
