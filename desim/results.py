@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from .estimate import NON_NEGATIVE, SHARE, Estimate, interval_method
-from .run import RunResult
+from .run import DEFAULT_PERCENTILES, RunResult, percentile_metric
 from .warmup import mser5
 
 if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is slow)
@@ -26,6 +26,10 @@ __all__ = ["SimulationResult", "WarmupSuggestion", "summarize"]
 
 #: Metrics reported (as estimates) per kind of node; per-replication values hold a few more.
 PLACE_METRICS = ("wait", "abandoned", "queue", "served_within", "delayed")
+#: Place metrics of the waits' distribution: the average speed of answer (mean wait of the jobs
+#: taken) and the wait percentiles, ``wait_p50`` ... (those a run reports, by default
+#: :data:`desim.run.DEFAULT_PERCENTILES`).
+WAIT_METRICS = ("asa",)
 SOURCE_METRICS = ("arrivals", "completed", "abandoned", "abandoned_share", "total_wait")
 #: Natural bounds of each figure, by kind and metric (per-interval metrics under "interval"):
 #: shares, service levels and busy fractions lie in [0, 1]; counts, rates, waits and queues are
@@ -33,7 +37,8 @@ SOURCE_METRICS = ("arrivals", "completed", "abandoned", "abandoned_share", "tota
 BOUNDS = {
     "transitions": {"rate": NON_NEGATIVE},
     "places": {"wait": NON_NEGATIVE, "abandoned": SHARE, "queue": NON_NEGATIVE,
-               "served_within": SHARE, "delayed": SHARE},
+               "served_within": SHARE, "delayed": SHARE, "asa": NON_NEGATIVE,
+               **{percentile_metric(q): NON_NEGATIVE for q in DEFAULT_PERCENTILES}},
     "pools": {"busy": SHARE},
     "sources": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
                 "abandoned_share": SHARE, "total_wait": NON_NEGATIVE},
@@ -74,7 +79,10 @@ class SimulationResult:
 
     ``transitions`` {t: {"rate"}}, ``places`` {p: {"wait", "abandoned", "queue",
     "served_within" (places with a target only), "delayed" (share not taken the instant they
-    became available: P(W > 0))}}, ``pools`` {r: {"busy"}}, ``sources``
+    became available: P(W > 0)), "asa" (average speed of answer: mean wait of the jobs taken),
+    "wait_p50", "wait_p80", ... (wait percentiles of every job that left, taken or abandoning;
+    each an estimate over the per-replication percentiles, never pooled across replications)}},
+    ``pools`` {r: {"busy"}}, ``sources``
     {s: {"arrivals", "completed", "abandoned", "abandoned_share", "total_wait"}}: each value an
     :class:`Estimate`. ``intervals``: tidy per-interval table (columns interval, start, end,
     metric, name, mean, low, high, n) or None. ``unstable``: per-replication flags of runs stopped
@@ -186,10 +194,20 @@ def _estimates(runs: list[RunResult], kind_table: str, metrics: tuple[str, ...] 
     bounds = BOUNDS.get(kind_table, {})
     for name, first in names.items():
         wanted = [m for m in (metrics or first) if m in first]
-        out[name] = {m: Estimate.from_values([getattr(r, kind_table)[name][m] for r in runs],
-                                             bounds=bounds.get(m))
+        if kind_table == "places":
+            # (the waits' figures come after the pinned ones; a run saved before they existed
+            # has none of them)
+            wanted += [m for m in first if m in WAIT_METRICS or m.startswith("wait_p")]
+        out[name] = {m: Estimate.from_values([getattr(r, kind_table)[name].get(m, math.nan)
+                                              for r in runs],
+                                             bounds=bounds.get(m, _wait_bounds(m)))
                      for m in wanted}
     return out
+
+
+def _wait_bounds(metric: str) -> tuple[float, float] | None:
+    """Bounds of a wait figure not named in :data:`BOUNDS` (a percentile asked for)."""
+    return NON_NEGATIVE if metric.startswith("wait_p") else None
 
 
 def _interval_estimates(runs: list[RunResult]) -> pd.DataFrame | None:
