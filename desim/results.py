@@ -136,6 +136,19 @@ class SimulationResult:
         return {kind: {m: interval_method(b) for m, b in metrics.items()}
                 for kind, metrics in BOUNDS.items()}
 
+    def wait_distribution_json(self) -> dict:
+        """The waits' figures of each waiting place as JSON: ``{p: {"asa": est,
+        "wait_percentiles": {"50": est, "80": est, ...}}}`` (percentile in percent as the key,
+        each estimate ``{"mean", "low", "high", "n"}``; times in the scenario's time unit)."""
+        out = {}
+        for name, ms in self.places.items():
+            if "asa" not in ms:
+                continue
+            out[name] = {"asa": ms["asa"].to_json(),
+                         "wait_percentiles": {m.removeprefix("wait_p"): e.to_json()
+                                              for m, e in ms.items() if m.startswith("wait_p")}}
+        return out
+
     def per_replication(self) -> pd.DataFrame:
         """Tidy table of every per-replication figure: replication, kind, name, metric, value."""
         import pandas as pd
@@ -157,10 +170,16 @@ class SimulationResult:
         return pd.DataFrame(rows, columns=["kind", "name", "metric", "mean", "low", "high", "n"])
 
     def to_json(self) -> dict:
-        """The ``simulate --json`` document (design.md §5), with more keys; nan becomes null."""
+        """The ``simulate --json`` document (design.md §5), with more keys (the waits' figures of
+        each waiting place under ``wait_distribution``, see :meth:`wait_distribution_json`;
+        ``places`` keeps its keys); nan becomes null."""
 
         def table(t: dict) -> dict:
             return {n: {m: e.to_json() for m, e in ms.items()} for n, ms in t.items()}
+
+        def pinned_places() -> dict:  # (design.md §5's keys; the waits' figures go apart)
+            return {n: {m: e.to_json() for m, e in ms.items() if not _is_wait_metric(m)}
+                    for n, ms in self.places.items()}
 
         intervals = None
         if self.intervals is not None:
@@ -177,7 +196,8 @@ class SimulationResult:
             "warmup": self.warmup,
             "seed": self.seed,
             "transitions": table(self.transitions),
-            "places": table(self.places),
+            "places": pinned_places(),
+            "wait_distribution": self.wait_distribution_json(),
             "pools": table(self.pools),
             "sources": table(self.sources),
             "intervals": intervals,
@@ -197,12 +217,16 @@ def _estimates(runs: list[RunResult], kind_table: str, metrics: tuple[str, ...] 
         if kind_table == "places":
             # (the waits' figures come after the pinned ones; a run saved before they existed
             # has none of them)
-            wanted += [m for m in first if m in WAIT_METRICS or m.startswith("wait_p")]
+            wanted += [m for m in first if _is_wait_metric(m)]
         out[name] = {m: Estimate.from_values([getattr(r, kind_table)[name].get(m, math.nan)
                                               for r in runs],
                                              bounds=bounds.get(m, _wait_bounds(m)))
                      for m in wanted}
     return out
+
+
+def _is_wait_metric(metric: str) -> bool:
+    return metric in WAIT_METRICS or metric.startswith("wait_p")
 
 
 def _wait_bounds(metric: str) -> tuple[float, float] | None:

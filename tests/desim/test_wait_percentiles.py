@@ -82,7 +82,12 @@ def test_other_percentiles_and_a_bad_one():
     sim = desim.replicate(s, reps=2, horizon=300, warmup=10, seed=1, workers=1,
                           percentiles=[99, 12.5])
     assert [m for m in sim.places["queue"] if m.startswith("wait_p")] == ["wait_p99", "wait_p12.5"]
-    assert sim.to_json()["places"]["queue"]["wait_p99"]["n"] == 2
+    doc = sim.to_json()
+    assert list(doc["wait_distribution"]["queue"]["wait_percentiles"]) == ["99", "12.5"]
+    assert doc["wait_distribution"]["queue"]["wait_percentiles"]["99"]["n"] == 2
+    assert set(doc["wait_distribution"]["queue"]["asa"]) == {"mean", "low", "high", "n"}
+    assert "talk" not in doc["wait_distribution"]  # only waiting places
+    assert "asa" not in doc["places"]["queue"]  # design.md §5's place keys stay as they were
     with pytest.raises(desim.SettingsError, match="percentiles"):
         desim.replicate(s, reps=2, horizon=300, warmup=10, seed=1, workers=1, percentiles=[101])
 

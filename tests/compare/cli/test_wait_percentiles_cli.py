@@ -28,8 +28,8 @@ def test_simulate_default_percentiles_in_text_and_json(capsys):
         assert q in out
     code, out, _ = run(capsys, "simulate", SINGLE, "--reps", "2", "--horizon", "400", "--warmup", "20", "--quiet",
                        "--json")
-    queue = json.loads(out)["places"]["queue"]
-    assert {"asa", "wait_p50", "wait_p80", "wait_p90", "wait_p95"} <= set(queue)
+    queue = json.loads(out)["wait_distribution"]["queue"]
+    assert list(queue["wait_percentiles"]) == ["50", "80", "90", "95"]
     assert {"mean", "low", "high", "n"} == set(queue["asa"])
     assert json.loads(out)["interval_methods"]["places"]["asa"].startswith("student t")
 
@@ -38,9 +38,9 @@ def test_compare_other_percentiles(capsys):
     code, out, _ = run(capsys, "compare", SINGLE, "--reps", "2", "--horizon", "400", "--warmup", "20", "--quiet",
                        "--json", "--percentiles", "75", "99")
     assert code == 0
-    queue = json.loads(out)["simulation"]["places"]["queue"]
-    assert [k for k in queue if k.startswith("wait_p")] == ["wait_p75", "wait_p99"]
-    assert queue["wait_p75"]["mean"] <= queue["wait_p99"]["mean"]
+    queue = json.loads(out)["simulation"]["wait_distribution"]["queue"]["wait_percentiles"]
+    assert list(queue) == ["75", "99"]
+    assert queue["75"]["mean"] <= queue["99"]["mean"]
 
 
 def test_bad_percentile_is_one_line_exit_2(capsys):
