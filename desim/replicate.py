@@ -19,8 +19,8 @@ from fluid.scenario import Scenario
 
 from .pool import local_pool
 from .results import SimulationResult, summarize
-from .run import RunResult, run_replication
-from .settings import SimulationSettings, resolve_settings
+from .run import DEFAULT_PERCENTILES, RunResult, check_percentiles, run_replication
+from .settings import SettingsError, SimulationSettings, resolve_settings
 from .store import RunStore
 
 __all__ = ["replicate", "run_replications"]
@@ -89,7 +89,8 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
               progress: Callable[[], object] | None = None,
               record_waits: bool = False, out: str | os.PathLike | None = None,
               resume: bool = False, shortcuts: bool = True,
-              settings: SimulationSettings | None = None) -> SimulationResult:
+              settings: SimulationSettings | None = None,
+              percentiles=None) -> SimulationResult:
     """Simulate ``reps`` independent replications of ``scenario`` over [0, horizon], measure each
     over [warmup, horizon] and return estimates with 95 % Student t intervals.
 
@@ -101,7 +102,9 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
     ``max_jobs``: jobs allowed inside a run at once before it is stopped and reported unstable
     (default :data:`desim.run.DEFAULT_MAX_JOBS`). ``progress``: called once per finished
     replication (or read back from ``out``). ``record_waits``: keep every wait in the window
-    (``result.runs[i].waits``).
+    (``result.runs[i].waits``). ``percentiles``: the wait percentiles (in percent) reported per
+    place (None: :data:`desim.run.DEFAULT_PERCENTILES`); a bad one raises
+    :class:`desim.SettingsError` naming ``percentiles``.
 
     ``out``: a run directory (:class:`desim.store.RunStore`); every replication is saved there as
     it finishes, and the combined result as ``summary.json`` at the end. Without ``resume`` it
@@ -119,6 +122,15 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
     reps = cfg.replications
     run_settings = dict(horizon=cfg.horizon, warmup=cfg.warmup, seed=cfg.seed,
                         interval=cfg.interval, max_jobs=cfg.max_jobs, record_waits=record_waits)
+    if percentiles is not None:
+        try:
+            wanted = check_percentiles(percentiles)
+        except ValueError as exc:
+            raise SettingsError("percentiles", str(exc).removeprefix("a wait percentile ")) from None
+        # (only other percentiles than the default are a setting of the run directory, so a
+        # folder saved before percentiles existed is still resumed with the default)
+        if wanted != DEFAULT_PERCENTILES:
+            run_settings["percentiles"] = list(wanted)
     store = (None if cfg.out is None
              else RunStore.open(Path(cfg.out), scenario, run_settings, resume=cfg.resume))
     with contextlib.nullcontext() if store is None else store:  # closing it lets go of its lock

@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from .estimate import NON_NEGATIVE, SHARE, Estimate, interval_method
-from .run import RunResult
+from .run import DEFAULT_PERCENTILES, RunResult, percentile_metric
 from .warmup import mser5
 
 if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is slow)
@@ -26,6 +26,10 @@ __all__ = ["SimulationResult", "WarmupSuggestion", "summarize"]
 
 #: Metrics reported (as estimates) per kind of node; per-replication values hold a few more.
 PLACE_METRICS = ("wait", "abandoned", "queue", "served_within", "delayed")
+#: Place metrics of the waits' distribution: the average speed of answer (mean wait of the jobs
+#: taken) and the wait percentiles, ``wait_p50`` ... (those a run reports, by default
+#: :data:`desim.run.DEFAULT_PERCENTILES`).
+WAIT_METRICS = ("asa",)
 SOURCE_METRICS = ("arrivals", "completed", "abandoned", "abandoned_share", "total_wait", "lost",
                   "callers_served", "callers_abandoned", "callers_lost")
 #: The per-caller outcome shares among SOURCE_METRICS, by outcome (the JSON's ``outcomes``).
@@ -37,7 +41,8 @@ CALLER_OUTCOMES = {"served": "callers_served", "abandoned": "callers_abandoned",
 BOUNDS = {
     "transitions": {"rate": NON_NEGATIVE},
     "places": {"wait": NON_NEGATIVE, "abandoned": SHARE, "queue": NON_NEGATIVE,
-               "served_within": SHARE, "delayed": SHARE},
+               "served_within": SHARE, "delayed": SHARE, "asa": NON_NEGATIVE,
+               **{percentile_metric(q): NON_NEGATIVE for q in DEFAULT_PERCENTILES}},
     "pools": {"busy": SHARE},
     "sources": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
                 "abandoned_share": SHARE, "total_wait": NON_NEGATIVE, "lost": NON_NEGATIVE,
@@ -81,7 +86,10 @@ class SimulationResult:
 
     ``transitions`` {t: {"rate"}}, ``places`` {p: {"wait", "abandoned", "queue",
     "served_within" (places with a target only), "delayed" (share not taken the instant they
-    became available: P(W > 0))}}, ``pools`` {r: {"busy"}}, ``sources``
+    became available: P(W > 0)), "asa" (average speed of answer: mean wait of the jobs taken),
+    "wait_p50", "wait_p80", ... (wait percentiles of every job that left, taken or abandoning;
+    each an estimate over the per-replication percentiles, never pooled across replications)}},
+    ``pools`` {r: {"busy"}}, ``sources``
     {s: {"arrivals", "completed", "abandoned", "abandoned_share", "total_wait", "lost",
     "callers_served", "callers_abandoned", "callers_lost"}} (see :mod:`desim.run`; the JSON
     gathers the three caller shares under ``outcomes``): each value an
@@ -137,6 +145,19 @@ class SimulationResult:
         return {kind: {m: interval_method(b) for m, b in metrics.items()}
                 for kind, metrics in BOUNDS.items()}
 
+    def wait_distribution_json(self) -> dict:
+        """The waits' figures of each waiting place as JSON: ``{p: {"asa": est,
+        "wait_percentiles": {"50": est, "80": est, ...}}}`` (percentile in percent as the key,
+        each estimate ``{"mean", "low", "high", "n"}``; times in the scenario's time unit)."""
+        out = {}
+        for name, ms in self.places.items():
+            if "asa" not in ms:
+                continue
+            out[name] = {"asa": ms["asa"].to_json(),
+                         "wait_percentiles": {m.removeprefix("wait_p"): e.to_json()
+                                              for m, e in ms.items() if m.startswith("wait_p")}}
+        return out
+
     def per_replication(self) -> pd.DataFrame:
         """Tidy table of every per-replication figure: replication, kind, name, metric, value."""
         import pandas as pd
@@ -168,10 +189,16 @@ class SimulationResult:
         return out
 
     def to_json(self) -> dict:
-        """The ``simulate --json`` document (design.md §5), with more keys; nan becomes null."""
+        """The ``simulate --json`` document (design.md §5), with more keys (the waits' figures of
+        each waiting place under ``wait_distribution``, see :meth:`wait_distribution_json`;
+        ``places`` keeps its keys); nan becomes null."""
 
         def table(t: dict) -> dict:
             return {n: {m: e.to_json() for m, e in ms.items()} for n, ms in t.items()}
+
+        def pinned_places() -> dict:  # (design.md §5's keys; the waits' figures go apart)
+            return {n: {m: e.to_json() for m, e in ms.items() if not _is_wait_metric(m)}
+                    for n, ms in self.places.items()}
 
         intervals = None
         if self.intervals is not None:
@@ -188,7 +215,8 @@ class SimulationResult:
             "warmup": self.warmup,
             "seed": self.seed,
             "transitions": table(self.transitions),
-            "places": table(self.places),
+            "places": pinned_places(),
+            "wait_distribution": self.wait_distribution_json(),
             "pools": table(self.pools),
             "sources": self._sources_json(),
             "intervals": intervals,
@@ -205,10 +233,24 @@ def _estimates(runs: list[RunResult], kind_table: str, metrics: tuple[str, ...] 
     bounds = BOUNDS.get(kind_table, {})
     for name, first in names.items():
         wanted = [m for m in (metrics or first) if m in first]
-        out[name] = {m: Estimate.from_values([getattr(r, kind_table)[name][m] for r in runs],
-                                             bounds=bounds.get(m))
+        if kind_table == "places":
+            # (the waits' figures come after the pinned ones; a run saved before they existed
+            # has none of them)
+            wanted += [m for m in first if _is_wait_metric(m)]
+        out[name] = {m: Estimate.from_values([getattr(r, kind_table)[name].get(m, math.nan)
+                                              for r in runs],
+                                             bounds=bounds.get(m, _wait_bounds(m)))
                      for m in wanted}
     return out
+
+
+def _is_wait_metric(metric: str) -> bool:
+    return metric in WAIT_METRICS or metric.startswith("wait_p")
+
+
+def _wait_bounds(metric: str) -> tuple[float, float] | None:
+    """Bounds of a wait figure not named in :data:`BOUNDS` (a percentile asked for)."""
+    return NON_NEGATIVE if metric.startswith("wait_p") else None
 
 
 def _interval_estimates(runs: list[RunResult]) -> pd.DataFrame | None:

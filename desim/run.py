@@ -19,6 +19,14 @@ job is kept unless asked for (design.md §4.2):
   so far, summed. They close Little's law exactly, per run and place:
   ``queue × (end − warmup) = wait × left + waited_at_end − waited_at_warmup`` (the area under
   the number waiting is the waiting time inside the window of every job that waited there);
+* waiting place (:func:`fluid.structure.waiting_places`) ``wait_p50``, ``wait_p80``, ... (one
+  per percentile asked for, default
+  :data:`DEFAULT_PERCENTILES`): that percentile of the waits of the jobs that left the place in
+  the window, taken and abandoning together (the jobs ``wait`` averages over; numpy's linear
+  percentile); ``asa``, the average speed of answer: the mean wait of the jobs TAKEN in the window
+  (abandoners left out). These need the window's waits, so every run keeps them while it runs
+  (one float per job leaving a place in the window: 8 bytes each, some MB for a day of calls)
+  and drops them afterwards unless ``record_waits``;
 * transition ``rate``: firings per time unit;
 * pool ``busy``: busy agent-time / on-duty agent-time (with a fixed staff: the time-average
   fraction of staff not available);
@@ -55,12 +63,49 @@ if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is 
     import pandas as pd
 
 __all__ = ["RunResult", "run_replication", "DEFAULT_MAX_JOBS", "DEFAULT_SAMPLES", "check_settings",
-           "waiting_places"]
+           "waiting_places", "DEFAULT_PERCENTILES", "percentile_metric", "check_percentiles"]
 
 #: Jobs allowed inside at once before a run is declared unstable (about 0.3 GB per run).
 DEFAULT_MAX_JOBS = 1_000_000
 #: Points of the total-queue series per run (the MSER-5 input).
 DEFAULT_SAMPLES = 1000
+
+#: Wait percentiles reported per place unless others are asked for.
+DEFAULT_PERCENTILES = (50.0, 80.0, 90.0, 95.0)
+
+
+def percentile_metric(q: float) -> str:
+    """The place metric of wait percentile ``q`` (in percent): ``wait_p50``, ``wait_p99.5``."""
+    return f"wait_p{float(q):g}"
+
+
+def check_percentiles(percentiles) -> tuple[float, ...]:
+    """``percentiles`` as a tuple of floats, each in [0, 100] (else :class:`ValueError` naming
+    the value)."""
+    out = []
+    for q in percentiles:
+        q = float(q)
+        if not 0.0 <= q <= 100.0:
+            raise ValueError(f"a wait percentile must lie in [0, 100] (got {q:g})")
+        out.append(q)
+    return tuple(dict.fromkeys(out))
+
+
+def _wait_figures(taken: list[float], abandoned: list[float],
+                  percentiles: tuple[float, ...]) -> dict[str, float]:
+    """Per place and run: the wait percentiles over every job that left in the window (taken
+    or abandoning) and the average speed of answer (mean wait of the taken ones); nan where
+    nothing left."""
+    every = np.concatenate([np.asarray(taken, dtype=float), np.asarray(abandoned, dtype=float)])
+    out = {}
+    if every.size:
+        for q, v in zip(percentiles, np.percentile(every, percentiles).tolist()):
+            out[percentile_metric(q)] = v
+    else:
+        out.update((percentile_metric(q), math.nan) for q in percentiles)
+    out["asa"] = float(np.mean(taken)) if len(taken) else math.nan
+    return out
+
 
 _PLACE_FIELDS = ("became", "left", "wait_sum", "abandoned", "taken_within", "area",
                  "taken_at_once", "left_early", "abandoned_early", "within_early")
@@ -247,7 +292,8 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
                     interval: float | None = None, max_jobs: int | None = None,
                     record_waits: bool = False, record_jobs: bool = False,
                     trace: list | None = None, samples: int = DEFAULT_SAMPLES,
-                    shortcuts: bool = True) -> RunResult:
+                    shortcuts: bool = True,
+                    percentiles=DEFAULT_PERCENTILES) -> RunResult:
     """Run replication ``replication`` of ``scenario`` over [0, horizon] and measure it over
     [warmup, horizon] (times in the scenario's time unit; None takes ``scenario.run``).
 
@@ -260,7 +306,8 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
     and trace, only slower (see :func:`desim.net.build_net`). Raises
     :class:`desim.engine.ConservationError` if the run's job count does not balance, and
     :class:`desim.engine.ClockStopped` if its clock stops advancing (more events at one instant
-    than the net can need).
+    than the net can need). ``percentiles``: the wait percentiles (in percent) to report per
+    place (see the module docstring).
     """
     run = scenario.run
     horizon = float(run.horizon if horizon is None else horizon)
@@ -268,8 +315,11 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
     seed = int(run.seed if seed is None else seed)
     max_jobs = DEFAULT_MAX_JOBS if max_jobs is None else int(max_jobs)
     check_settings(horizon, warmup, interval, max_jobs)
+    percentiles = check_percentiles(percentiles)
 
-    net = build_net(scenario, seed, replication, record_waits=record_waits, shortcuts=shortcuts)
+    # (the waits are always kept while the run lasts: the percentiles need them; they draw no
+    # random number, so no other figure changes)
+    net = build_net(scenario, seed, replication, record_waits=True, shortcuts=shortcuts)
     jobs: list | None = [] if record_jobs else None
     engine = Engine(net, max_jobs=max_jobs, trace=trace, records=jobs, warmup=warmup,
                     events_at_one_instant=_events_at_one_instant(scenario))
@@ -326,10 +376,14 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
         stats = _window_stats(scenario, net, np.zeros_like(final), 0.0)
     transitions, places, pools, sources = stats
     at_end = _backlog(net, end)
+    waiting = set(waiting_places(scenario))
     for name, m in places.items():
         n0, w0 = backlog["warmup"][name] if "warmup" in backlog else (math.nan, math.nan)
         n1, w1 = at_end[name]
         m.update(waiting_at_warmup=n0, waiting_at_end=n1, waited_at_warmup=w0, waited_at_end=w1)
+        if name in waiting:
+            p = net.places[name]
+            m.update(_wait_figures(p.waits_taken, p.waits_abandoned, percentiles))
 
     intervals = None
     if interval is not None:

@@ -22,7 +22,8 @@ __all__ = ["SettingsError", "SimulationSettings", "resolve_settings", "SETTING_F
 #: The command-line flag of each setting (for messages).
 SETTING_FLAGS = {"replications": "--reps", "horizon": "--horizon", "warmup": "--warmup",
                  "seed": "--seed", "workers": "--workers", "max_jobs": "--max-jobs",
-                 "interval": "--interval", "out": "--out", "resume": "--resume"}
+                 "interval": "--interval", "out": "--out", "resume": "--resume",
+                 "percentiles": "--percentiles"}
 #: The most worker processes asked for.
 MOST_WORKERS = 1024
 

@@ -73,7 +73,7 @@ def simulate(args) -> Outcome:
 
     s = load(args)
     with simulation(args, s.run, arrivals=_arrivals(s)) as (settings, progress):
-        result = replicate(s, settings=settings, progress=progress)
+        result = replicate(s, settings=settings, progress=progress, percentiles=args.percentiles)
     return finish(args, render.simulation_text(s, result), result.to_json())
 
 
@@ -84,7 +84,8 @@ def compare(args) -> Outcome:
     s = load(args)
     with simulation(args, s.run, arrivals=_arrivals(s)) as (settings, progress):
         result = run_comparison(s, settings, progress=progress,
-                                record_waits=args.report is not None)
+                                record_waits=args.report is not None,
+                                percentiles=args.percentiles)
     return finish(args, render.comparison_text(s, result), result.to_json(),
                   report=lambda d: comparison_report(
                       d, result, s, caution=CAUTION, summary=render.comparison_summary(s, result)))

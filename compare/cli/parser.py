@@ -72,6 +72,19 @@ def _simulation_options(p: argparse.ArgumentParser) -> None:
                    help="continue the interrupted run saved in --out DIR")
 
 
+def _percentile(text: str) -> float:
+    """A percentile in percent, in [0, 100]."""
+    value = finite(text)
+    if not 0 <= value <= 100:
+        raise argparse.ArgumentTypeError(f"must lie in [0, 100] (got {text})")
+    return value
+
+
+def _percentiles(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--percentiles", type=_percentile, nargs="+", metavar="Q", default=None,
+                   help="wait percentiles per waiting place, in percent (default: 50 80 90 95)")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="fluidgap",
@@ -101,6 +114,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--interval", type=finite, metavar="STEP",
                    help="also tabulate arrivals, served, abandoned, service level and queue per "
                    "interval of this length")
+    _percentiles(p)
     p.set_defaults(handler=handlers.simulate)
 
     p = sub.add_parser("compare", help="the main job: fluid against simulation, gaps and flags")
@@ -108,6 +122,7 @@ def build_parser() -> argparse.ArgumentParser:
     _simulation_options(p)
     p.add_argument("--interval", type=finite, metavar="STEP",
                    help="per-interval comparison step (default for profiles and schedules: their step)")
+    _percentiles(p)
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
     p.set_defaults(handler=handlers.compare)
 

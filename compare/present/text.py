@@ -217,6 +217,17 @@ def simulation_text(s: Scenario, r) -> str:
     parts.append(format_table(
         ["waiting place", f"wait ({unit})", "queue", "abandoned share", "served within target"],
         rows))
+    spread = [m for p in waiting_places(s)[:1] for m in r.places[p] if m.startswith("wait_p")]
+    if spread:
+        # (the waits of every job that left, taken or abandoning, as `wait` above; the ASA counts
+        # the jobs taken only)
+        parts.append(format_table(
+            ["waiting place", f"ASA ({unit})", *(m.removeprefix("wait_") for m in spread)],
+            [[p, _est(r.places[p]["asa"], n), *(_est(r.places[p][m], n) for m in spread)]
+             for p in waiting_places(s)],
+            title=f"waits ({unit}): ASA = average speed of answer (mean wait of the jobs taken);\n"
+                  "pNN = NN-th percentile of the waits of all jobs that left (taken or abandoning),"
+                  "\n  per replication, then averaged:"))
     if r.pools:
         parts.append(format_table(
             ["pool", "busy fraction"], [[p, _est(v["busy"], n)] for p, v in r.pools.items()]))

@@ -92,13 +92,15 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
             warmup: float | None = None, seed: int | None = None, workers: int | None = None,
             executor: cf.Executor | None = None, progress: Callable[[], object] | None = None,
             interval: float | None = None, record_waits: bool = False,
-            max_jobs: int | None = None, out=None, resume: bool = False) -> Comparison:
+            max_jobs: int | None = None, out=None, resume: bool = False,
+            percentiles=None) -> Comparison:
     """Run ``scenario`` as a fluid model and as simulated replications over [0, horizon]
     measured over [warmup, horizon] (time units), and compare them.
 
     ``settings``: a :class:`desim.SimulationSettings`; each keyword given wins over it and
     anything unset comes from ``scenario.run`` (see :func:`desim.resolve_settings`).
-    ``progress``/``record_waits`` go to :func:`desim.replicate`. ``interval``: length of the
+    ``progress``/``record_waits``/``percentiles`` (the wait percentiles per place) go to
+    :func:`desim.replicate`. ``interval``: length of the
     per-interval comparison; by default it is built only for time-varying scenarios, with the
     shortest profile or schedule step."""
     settings = resolve_settings(scenario.run, settings, reps=reps, horizon=horizon,
@@ -111,7 +113,8 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
         interval = default_interval(scenario, settings.horizon)
         settings = settings.with_changes(interval=interval)
     fluid = throughput(scenario, window=settings.window)
-    sim = replicate(scenario, settings=settings, progress=progress, record_waits=record_waits)
+    sim = replicate(scenario, settings=settings, progress=progress, record_waits=record_waits,
+                    percentiles=percentiles)
     gaps = gap_tables(scenario, fluid, sim)
     # (with one replication every interval is empty, so no flag could fire: "no flags" would
     # read as a verdict; none is given instead)

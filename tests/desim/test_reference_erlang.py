@@ -10,7 +10,8 @@ values (design.md §4.2: one value per independent replication, never a pooled b
 interval). Several checks share the suite, so the per-check level is Bonferroni-corrected:
 the three modules that use this rule make at most ``FAMILY_CHECKS`` = 64 interval checks,
 default and slow runs together (at the time of writing 36 here, 8 in test_reference_priority.py
-and 8 in test_configs.py, one per place where tokens wait: 52), and each check uses level
+and 8 in test_configs.py, one per place where tokens wait; 3 more in test_wait_percentiles.py,
+which uses this rule: 55), and each check uses level
 1 − 0.05/64 ≈ 99.92 %, so the chance that any check of the whole family fails by chance alone is
 at most 5 % (Bonferroni; raise FAMILY_CHECKS when adding checks beyond it). The interval must
 also be narrow, half-width below ``NARROW`` = 10 % of the reference (of min(p, 1 − p) for a
