@@ -131,10 +131,36 @@ def station(args) -> Outcome:
     except ValueError as exc:
         if isinstance(exc, InputError):
             raise
+        flag = _station_flag(exc) if overrides is None else None
+        if flag is not None:  # a value the generated station refused: name the flag, not it
+            said = str(exc).removeprefix(f"{exc.file}: {exc.path}: ")
+            raise InputError(f"{cmd}: {flag}: {said}") from None
         raise InputError(f"{cmd}: {exc}") from None
     return finish(args, render.station_text(result), result.to_json(),
                   report=lambda d: station_report(d, result, caution=CAUTION,
                                                   summary=render.station_summary(result)))
+
+
+#: Fields of the generated station (fluid/stations.py) and the flag each comes from.
+_STATION_FLAGS = (("places.talk", "hold.cv", "--hold-cv"), ("places.talk", "hold", "--mean-hold"),
+                  ("places.queue", "patience", "--patience-mean"), ("sources.calls", "rate",
+                  "--rate / --class-rates"), ("pools.agents", "", "--servers"),
+                  ("targets.queue", "within", "--within"))
+
+
+def _station_flag(exc: ValueError) -> str | None:
+    """The station flag behind a field the generated station refused (None: not known)."""
+    path = getattr(exc, "path", None)
+    if not isinstance(path, str) or getattr(exc, "file", None) != "<station>":
+        return None
+    for prefix, field, flag in _STATION_FLAGS:
+        head, _, rest = path.partition(".")
+        name, _, tail = rest.partition(".")
+        # (class k's fields carry the suffix _k: places.talk_2.hold.cv)
+        base = f"{head}.{name.rsplit('_', 1)[0] if name[-1:].isdigit() else name}"
+        if base == prefix and tail.startswith(field):
+            return flag
+    return None
 
 
 def scale(args) -> Outcome:
@@ -144,8 +170,9 @@ def scale(args) -> Outcome:
     s = load(args)
     if not args.factors or any(not k > 0 for k in args.factors):
         raise InputError("fluidgap scale: --factors must be positive numbers")
+    # (the exponents' intervals and the per-factor intervals need two replications or more)
     with simulation(args, s.run, runs_per_replication=len(args.factors), arrivals=_arrivals(s),
-                    volume=sum(args.factors)) as (settings, progress):
+                    volume=sum(args.factors), min_replications=2) as (settings, progress):
         result = scale_study(s, args.factors, settings, progress=progress,
                              staffing=getattr(args, "staffing", "linear"))
     return finish(args, render.scale_text(result), result.to_json(),

@@ -39,6 +39,7 @@ import numpy as np
 import pandas as pd
 
 from desim import Estimate, SimulationResult
+from desim.estimate import NON_NEGATIVE
 from fluid.analysis import FluidResult
 from fluid.json_values import json_number
 from fluid.offered import pool_work
@@ -124,10 +125,11 @@ def fluid_abandonment(scenario: Scenario, places: dict[str, FluidPlace],
 
 
 def simulated_output(scenario: Scenario, sim: SimulationResult) -> Estimate:
-    """Total rate of the transitions that end jobs, per replication, as an estimate."""
+    """Total rate of the transitions that end jobs, per replication, as an estimate (a rate:
+    its interval is cut at 0)."""
     per_rep = np.sum([sim.raw("transition", q, "rate") for q in output_transitions(scenario)],
                      axis=0)
-    return Estimate.from_values(per_rep)
+    return Estimate.from_values(per_rep, bounds=NON_NEGATIVE)
 
 
 # --- the tables ----------------------------------------------------------------------------------

@@ -15,6 +15,7 @@ from typing import Callable
 import pandas as pd
 
 from desim import Estimate, SimulationSettings, resolve_settings
+from desim.estimate import NON_NEGATIVE
 from fluid.phases import PhaseDiagram
 from fluid.scenario import Scenario
 from fluid.service_level import service_level_verdicts
@@ -80,7 +81,8 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram,
             staff = dict(zip(diagram.axes, pt))
             variant = with_staff(scenario, staff)
             sim = sweep.run(variant, "-".join(f"{p}{n}" for p, n in staff.items()))
-            rate = Estimate.from_values(sum(sim.raw("transition", q, "rate") for q in diagram.of))
+            rate = Estimate.from_values(sum(sim.raw("transition", q, "rate") for q in diagram.of),
+                                        bounds=NON_NEGATIVE)
             fluid = float(diagram.rate_at(*pt))
             gap = gap_between(fluid, rate.mean)
             row = dict(zip("ab", pt)) | dict(

@@ -72,3 +72,23 @@ def test_commands_whose_verdicts_need_intervals_refuse_one_replication(capsys, a
 def test_staff_fluid_only_needs_no_replications(capsys):
     code, out, err = run(capsys, "staff", SINGLE, "--reps", "1", "--fluid-only", "--quiet")
     assert code == 0
+
+
+def test_scale_with_one_replication_is_refused(capsys):
+    # the fitted exponents and the per-factor gaps carry intervals over replications: with one
+    # replication the scale study used to print "decays as k^-0.759" with no uncertainty at all
+    code, out, err = run(capsys, "scale", SINGLE, "--reps", "1", "--factors", "1", "2")
+    assert code == 2 and out == ""
+    assert "--reps must be >= 2" in err and err.count("\n") == 1
+
+
+@pytest.mark.parametrize("flags, named", [
+    (("--hold-cv", "1e6"), "--hold-cv"),
+    (("--hold-cv", "1e6", "--class-rates", "1", "1"), "--hold-cv"),
+])
+def test_station_names_the_flag_not_the_generated_field(capsys, flags, named):
+    code, out, err = run(capsys, "station", "--servers", "3", "--rate", "2", "--mean-hold", "1",
+                         *flags)
+    assert code == 2 and out == ""
+    assert err.startswith(f"fluidgap station: {named}: must be at most")
+    assert "<station>" not in err and "places." not in err
