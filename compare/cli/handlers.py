@@ -49,6 +49,7 @@ def _check_step(s, dt: float) -> None:
 
 def fluid(args) -> Outcome:
     from fluid.analysis import throughput
+    from fluid.sources import rate_uncertainty, rate_uncertainty_notes
     from fluid.structure import lp_obstacles
 
     s = load(args)
@@ -58,7 +59,10 @@ def fluid(args) -> Outcome:
         raise InputError(f"fluidgap fluid: --method lp does not apply to this net (it has "
                          f"{', '.join(lp_obstacles(s))}): use --method counters or auto")
     result = throughput(s, method=args.method, dt=args.dt, cross_check=args.cross_check)
-    return finish(args, render.fluid_text(s, result), result.to_dict())
+    doc, notes = result.to_dict(), rate_uncertainty_notes(s.sources)
+    doc["rate_uncertainty"] = rate_uncertainty(s.sources)
+    text = render.fluid_text(s, result) + "".join(f"\nnote: {n}" for n in notes)
+    return finish(args, text, doc)
 
 
 def _arrivals(s):
@@ -82,7 +86,10 @@ def compare(args) -> Outcome:
     from ..study.comparison import compare as run_comparison
 
     s = load(args)
-    with simulation(args, s.run, arrivals=_arrivals(s)) as (settings, progress):
+    # (a day factor on a source's rates adds a run without it: compare/study/rate_flags.py)
+    runs = 2 if any(src.rate_varies for src in s.sources.values()) else 1
+    with simulation(args, s.run, arrivals=_arrivals(s), runs_per_replication=runs) as (
+            settings, progress):
         result = run_comparison(s, settings, progress=progress,
                                 record_waits=args.report is not None,
                                 percentiles=args.percentiles)
