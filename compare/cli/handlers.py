@@ -75,15 +75,21 @@ def _arrivals(s):
 def simulate(args) -> Outcome:
     from desim import replicate
 
+    from .exports import simulation_outputs
+
     s = load(args)
     with simulation(args, s.run, arrivals=_arrivals(s)) as (settings, progress):
-        result = replicate(s, settings=settings, progress=progress, percentiles=args.percentiles)
-    return finish(args, render.simulation_text(s, result), result.to_json())
+        result = replicate(s, settings=settings, progress=progress, percentiles=args.percentiles,
+                           record_waits=args.report is not None)
+    doc = result.to_json()
+    text, report = simulation_outputs(args, s, result, render.simulation_text(s, result), doc)
+    return finish(args, text, doc, report=report)
 
 
 def compare(args) -> Outcome:
     from ..present.reports import comparison_report
     from ..study.comparison import compare as run_comparison
+    from .exports import comparison_csv
 
     s = load(args)
     # (a day factor on a source's rates adds a run without it: compare/study/rate_flags.py)
@@ -93,7 +99,9 @@ def compare(args) -> Outcome:
         result = run_comparison(s, settings, progress=progress,
                                 record_waits=args.report is not None,
                                 percentiles=args.percentiles)
-    return finish(args, render.comparison_text(s, result), result.to_json(),
+    doc = result.to_json()
+    text = comparison_csv(args, s, result, render.comparison_text(s, result), doc)
+    return finish(args, text, doc,
                   report=lambda d: comparison_report(
                       d, result, s, caution=CAUTION, summary=render.comparison_summary(s, result)))
 
