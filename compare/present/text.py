@@ -272,6 +272,7 @@ FLAG_TITLES = {
     "near_critical": "near critical load",
     "target_missed": "target missed",
     "unstable": "unstable",
+    "rate_uncertainty": "rate uncertainty",
 }
 
 
