@@ -34,7 +34,8 @@ def describe_dist(d: Any) -> str:
 
 
 def _source_text(src) -> str:
-    return src.arrivals.describe(fmt)
+    day = f", {src.random_rate.describe()}" if src.rate_varies else ""
+    return src.arrivals.describe(fmt) + day
 
 
 def _pool_text(pool) -> str:
