@@ -299,10 +299,12 @@ class SourceState:
     None."""
 
     __slots__ = ("name", "place", "spacing", "next_time", "arrived", "completed", "abandoned",
-                 "wait_sum", "lost", "ended_new")
+                 "wait_sum", "lost", "ended_new", "rate_factor")
 
-    def __init__(self, name: str, place: PlaceState, clock: ArrivalClock):
+    def __init__(self, name: str, place: PlaceState, clock: ArrivalClock,
+                 rate_factor: float | None = None):
         self.name = name
+        self.rate_factor = rate_factor  # this run's day factor on the rates (None: no factor)
         self.place = place
         self.spacing: Iterator[float] | None = clock.spacing
         self.next_time: Callable[[float], float] = clock.next_time
@@ -441,8 +443,13 @@ def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: 
 
     sources: dict[str, SourceState] = {}
     for s in scenario.sources.values():
-        clock = s.arrivals.clock(stream_rng(seed, replication, "arrivals", s.name), block)
-        sources[s.name] = SourceState(s.name, places[s.into], clock)
+        arrivals, factor = s.arrivals, None
+        if s.rate_varies:
+            # drawn once per run from its own stream: every other draw stays as it was
+            factor = s.random_rate.sample(stream_rng(seed, replication, "random_rate", s.name))
+            arrivals = arrivals.scaled(factor)
+        clock = arrivals.clock(stream_rng(seed, replication, "arrivals", s.name), block)
+        sources[s.name] = SourceState(s.name, places[s.into], clock, factor)
     net = Net(scenario, places, pools, [trans[n] for n in order], sources, shortcuts)
     for pool in net.pools.values():  # read by PoolState.give, on every path
         pool.takers = tuple((t.fifo, t.bit) for t in net.transitions

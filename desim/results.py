@@ -31,7 +31,7 @@ PLACE_METRICS = ("wait", "abandoned", "queue", "served_within", "delayed")
 #: :data:`desim.run.DEFAULT_PERCENTILES`).
 WAIT_METRICS = ("asa",)
 SOURCE_METRICS = ("arrivals", "completed", "abandoned", "abandoned_share", "total_wait", "lost",
-                  "callers_served", "callers_abandoned", "callers_lost")
+                  "callers_served", "callers_abandoned", "callers_lost", "rate_factor")
 #: The per-caller outcome shares among SOURCE_METRICS, by outcome (the JSON's ``outcomes``).
 CALLER_OUTCOMES = {"served": "callers_served", "abandoned": "callers_abandoned",
                    "lost": "callers_lost"}
@@ -46,7 +46,8 @@ BOUNDS = {
     "pools": {"busy": SHARE},
     "sources": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
                 "abandoned_share": SHARE, "total_wait": NON_NEGATIVE, "lost": NON_NEGATIVE,
-                "callers_served": SHARE, "callers_abandoned": SHARE, "callers_lost": SHARE},
+                "callers_served": SHARE, "callers_abandoned": SHARE, "callers_lost": SHARE,
+                "rate_factor": NON_NEGATIVE},
     "interval": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
                  "service_level": SHARE, "queue": NON_NEGATIVE},
 }
@@ -91,7 +92,8 @@ class SimulationResult:
     each an estimate over the per-replication percentiles, never pooled across replications)}},
     ``pools`` {r: {"busy"}}, ``sources``
     {s: {"arrivals", "completed", "abandoned", "abandoned_share", "total_wait", "lost",
-    "callers_served", "callers_abandoned", "callers_lost"}} (see :mod:`desim.run`; the JSON
+    "callers_served", "callers_abandoned", "callers_lost", "rate_factor" (sources with a
+    ``random_rate`` only: the day factors drawn)}} (see :mod:`desim.run`; the JSON
     gathers the three caller shares under ``outcomes``): each value an
     :class:`Estimate`. ``intervals``: tidy per-interval table (columns interval, start, end,
     metric, name, mean, low, high, n) or None. ``unstable``: per-replication flags of runs stopped

@@ -38,7 +38,8 @@ job is kept unless asked for (design.md §4.2):
 * source per-caller outcomes (however many visits a caller made, e.g. through a redial loop):
   ``callers_ended``, the jobs that arrived in the window and ended by its end, and
   ``callers_served``, ``callers_abandoned``, ``callers_lost``, the shares of them that ended
-  each way (they sum to 1).
+  each way (they sum to 1); ``rate_factor``, for a source with a ``random_rate``, the day
+  factor this run drew for its rates.
 
 All times are in the scenario's time unit.
 """
@@ -375,6 +376,9 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
     else:  # stopped before the window opened: nothing to measure
         stats = _window_stats(scenario, net, np.zeros_like(final), 0.0)
     transitions, places, pools, sources = stats
+    for name, src in net.sources.items():  # (only sources with a day factor have one)
+        if src.rate_factor is not None:
+            sources[name]["rate_factor"] = src.rate_factor
     at_end = _backlog(net, end)
     waiting = set(waiting_places(scenario))
     for name, m in places.items():

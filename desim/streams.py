@@ -1,7 +1,7 @@
 """Random streams keyed by name, drawn from numpy in blocks.
 
-Every source of randomness in a run (the arrivals of a source, the holds of a place, the routing of
-a place, the patience of a place) has its own numpy Generator, seeded from
+Every source of randomness in a run (the arrivals of a source, the day factor of a source's rates,
+the holds of a place, the routing of a place, the patience of a place) has its own numpy Generator, seeded from
 ``SeedSequence(seed, spawn_key=(replication, stable_hash(kind + ":" + name)))``. A stream depends
 only on the seed, the replication and its own kind and name, so adding an unrelated place changes
 no other draw, and two staffing plans run with the same seed see the same arrivals, holds and
@@ -19,7 +19,7 @@ import numpy as np
 __all__ = ["STREAM_KINDS", "BLOCK", "stable_hash", "stream_rng", "block_draws", "uniform_draws"]
 
 #: The kinds of randomness a run uses; each (kind, name) pair is its own stream.
-STREAM_KINDS = ("arrivals", "hold", "route", "patience")
+STREAM_KINDS = ("arrivals", "hold", "route", "patience", "random_rate")
 
 #: Draws taken from numpy per refill of a stream.
 BLOCK = 1024

@@ -38,7 +38,7 @@ from .scenario import (
     Targets,
     Transition,
 )
-from .sources import PoissonArrivals, ProfileArrivals, TraceArrivals
+from .sources import PoissonArrivals, ProfileArrivals, TraceArrivals, parse_random_rate
 from .overrides import apply_override, parse_override
 from .validation import check_structure, short_plans
 from .yaml_text import parse_yaml as _parse_yaml
@@ -376,15 +376,27 @@ def _build_place(name: str, spec: dict, folder: DataFolder) -> Place:
 def _build_source(name: str, spec: dict, folder: DataFolder, horizon: float,
                   limits: Limits) -> Source:
     path = f"sources.{name}"
-    _known_keys(spec, ("rate", "profile", "trace", "into"), path)
+    _known_keys(spec, ("rate", "profile", "trace", "into", "random_rate"), path)
     if "into" not in spec:
         raise FieldError(f"{path}.into", "is required")
     into = _name(spec["into"], f"{path}.into")
     kinds = [k for k in ("rate", "profile", "trace") if k in spec]
     if len(kinds) != 1:
         raise FieldError(path, "needs exactly one of rate, profile or trace")
+    random_rate = None
+    if "random_rate" in spec:
+        if "trace" in spec:
+            raise FieldError(f"{path}.random_rate", "a trace source has recorded times, no "
+                             "rate to vary: give it a rate or a profile for a day factor")
+        random_rate = parse_random_rate(spec["random_rate"], f"{path}.random_rate")
+    arrivals = _build_arrivals(spec, path, folder, horizon, limits)
+    return Source(name, into, arrivals, random_rate=random_rate)
+
+
+def _build_arrivals(spec: dict, path: str, folder: DataFolder, horizon: float, limits: Limits):
+    """The arrival process of the source at ``path`` (its rate, profile or trace)."""
     if "rate" in spec:
-        return Source(name, into, PoissonArrivals(_real(spec["rate"], f"{path}.rate", strict=True)))
+        return PoissonArrivals(_real(spec["rate"], f"{path}.rate", strict=True))
     if "profile" in spec:
         prof = _mapping(spec["profile"], f"{path}.profile", allow_none=False)
         _known_keys(prof, ("step", "rates"), f"{path}.profile")
@@ -398,8 +410,8 @@ def _build_source(name: str, spec: dict, folder: DataFolder, horizon: float,
         rates_t = tuple(_real(r, f"{path}.profile.rates[{i}]") for i, r in enumerate(rates))
         if not any(r > 0 for r in rates_t):
             raise FieldError(f"{path}.profile.rates", "needs at least one positive rate")
-        return Source(name, into, ProfileArrivals(step=step, rates=rates_t))
-    return Source(name, into, TraceArrivals(_read_trace(spec["trace"], f"{path}.trace", folder)))
+        return ProfileArrivals(step=step, rates=rates_t)
+    return TraceArrivals(_read_trace(spec["trace"], f"{path}.trace", folder))
 
 
 def _read_trace(value: Any, path: str, folder: DataFolder) -> tuple[float, ...]:

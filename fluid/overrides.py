@@ -70,6 +70,9 @@ def apply_override(doc: dict, path: str, value: Any, *, file: str = "<string>") 
     otherwise add an idle pool and leave the real one as it was. ``+pools.NAME=VALUE`` (and
     ``+places.``, ``+sources.``, ``+transitions.``) adds one on purpose.
 
+    ``sources.NAME.random_rate.cv=C`` on a source without ``random_rate`` gives it a gamma day
+    factor with that cv.
+
     Convenience for pools written in the long form: ``pools.NAME=12`` sets that pool's
     ``staff`` and keeps its priority (a pool with a schedule has no single staff level: change
     its ``schedule.staff`` or give the whole pool); ``pools.NAME.priority=[...]`` on a pool
@@ -128,6 +131,11 @@ def apply_override(doc: dict, path: str, value: Any, *, file: str = "<string>") 
             return
         if len(parts) > 2 and not isinstance(current, dict):
             pools[entry] = {"staff": current}
+    if (head == "sources" and len(parts) == 4 and parts[2] == "random_rate"
+            and isinstance(doc["sources"][parts[1]], dict)
+            and "random_rate" not in doc["sources"][parts[1]]):
+        # (sources.NAME.random_rate.cv=C on a source without a day factor gives it one)
+        doc["sources"][parts[1]]["random_rate"] = {"dist": "gamma"}
     if head in OPTIONAL_SECTIONS and len(parts) >= 2 and head not in doc:
         doc[head] = {}  # (a section the document leaves out: its fields can still be set)
     node: Any = doc

@@ -19,7 +19,7 @@ from functools import cached_property
 from typing import Any, Iterator, Mapping
 
 from .distributions import Distribution
-from .sources import Arrivals
+from .sources import Arrivals, RandomRate
 
 __all__ = [
     "FrozenMap",
@@ -122,11 +122,20 @@ LIMIT_FLAGS = {"file_values": "--max-file-values", "intervals": "--max-intervals
 class Source:
     """Exogenous arrivals into one place. ``arrivals`` is the arrival process, one of
     :class:`~fluid.sources.PoissonArrivals`, :class:`~fluid.sources.ProfileArrivals` or
-    :class:`~fluid.sources.TraceArrivals`; ask it, not which kind it is."""
+    :class:`~fluid.sources.TraceArrivals`; ask it, not which kind it is. ``random_rate``: a
+    :class:`~fluid.sources.RandomRate` day factor multiplying its rates, drawn once per
+    replication (None: the rates as written; the fluid model always reads them as written,
+    the factor's mean being 1)."""
 
     name: str
     into: str
     arrivals: Arrivals
+    random_rate: RandomRate | None = None
+
+    @property
+    def rate_varies(self) -> bool:
+        """True when a day factor with cv > 0 multiplies the rates in the simulation."""
+        return self.random_rate is not None and self.random_rate.varies
 
 
 @dataclass(frozen=True)

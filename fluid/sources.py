@@ -18,6 +18,11 @@ Each answers the same questions, so no engine or study asks which kind it holds:
 * studies: :meth:`scaled` (rates times a factor) with :meth:`rate_fields` (where the rates sit in
   the scenario document), :meth:`describe` for tables, ``file_data`` for run fingerprints.
 
+A source may also carry a :class:`RandomRate` (scenario key ``random_rate``): a day factor of
+mean 1 that multiplies all its rates, drawn once per replication, so that the day's volume
+itself is uncertain (a doubly stochastic, mixed Poisson process). The fluid side uses the mean
+(factor 1); the simulator draws it (:func:`parse_random_rate` reads the key).
+
 All times are in the scenario's time unit; rates are per that unit.
 """
 
@@ -32,6 +37,7 @@ from typing import Any, Callable, ClassVar, Iterator, Protocol
 import numpy as np
 
 from .errors import FieldError
+from .fields import as_float
 
 __all__ = [
     "Arrivals",
@@ -39,6 +45,12 @@ __all__ = [
     "PoissonArrivals",
     "ProfileArrivals",
     "TraceArrivals",
+    "RandomRate",
+    "RANDOM_RATE_DISTS",
+    "RANDOM_RATE_CV",
+    "parse_random_rate",
+    "rate_uncertainty",
+    "rate_uncertainty_notes",
 ]
 
 INF = math.inf
@@ -308,3 +320,93 @@ class TraceArrivals:
 
 #: Any of the arrival processes a source may hold.
 Arrivals = PoissonArrivals | ProfileArrivals | TraceArrivals
+
+
+# --- arrival-rate uncertainty --------------------------------------------------------------------
+
+#: The distributions a day factor may have (gamma only for now).
+RANDOM_RATE_DISTS = ("gamma",)
+#: The largest cv of a day factor. Beyond 1 the gamma factor is mostly near 0 with rare days of
+#: many times the expected volume, which no staffing plan is read against, and one such day
+#: could ask for far more work than the expected arrivals the run was checked for.
+RANDOM_RATE_CV = 1.0
+#: The smallest positive cv (as for the distributions' cv: below it the gamma shape 1/cv²
+#: overflows).
+_SMALLEST_CV = 1e-6
+
+
+@dataclass(frozen=True)
+class RandomRate:
+    """A day factor of mean 1 that multiplies every rate of a source, drawn once per
+    replication: gamma with the given ``cv`` (shape 1/cv², scale cv²). Arrivals over a period
+    with expected count λ then have variance λ + cv²λ² (a gamma mixture of Poisson counts is
+    negative binomial; Jongbloed and Koole 2001). ``cv`` 0 is no factor (always 1)."""
+
+    cv: float
+    dist: str = "gamma"
+
+    @property
+    def mean(self) -> float:
+        """The factor's mean: 1 (the fluid model uses it)."""
+        return 1.0
+
+    @property
+    def varies(self) -> bool:
+        """True when the factor is not always 1 (cv > 0)."""
+        return self.cv > 0
+
+    def sample(self, rng: np.random.Generator) -> float:
+        """One factor drawn from ``rng`` (1.0 exactly when cv is 0; then ``rng`` is not used)."""
+        if self.cv == 0:
+            return 1.0
+        shape = 1.0 / self.cv**2
+        return float(rng.gamma(shape, 1.0 / shape))
+
+    def variance_of_count(self, expected: float) -> float:
+        """Variance of the arrivals over a period whose expected count is ``expected`` (λ):
+        λ + cv² λ² (the negative binomial variance of the gamma-Poisson mixture)."""
+        return expected + self.cv**2 * expected**2
+
+    def describe(self) -> str:
+        """One line for tables and notes."""
+        return f"day factor {self.dist}, mean 1, cv {self.cv:g}"
+
+
+def parse_random_rate(value: Any, path: str) -> RandomRate:
+    """Read ``random_rate: {dist: gamma, cv: C}`` (``dist`` defaults to gamma; cv 0, or in
+    [1e-6, :data:`RANDOM_RATE_CV`]); raises :class:`FieldError` naming the key."""
+    if not isinstance(value, dict):
+        raise FieldError(path, "must be a mapping such as {dist: gamma, cv: 0.1}", value)
+    for key in value:
+        if key not in ("dist", "cv"):
+            raise FieldError(f"{path}.{key}", "unknown key (expected one of: dist, cv)")
+    dist = value.get("dist", "gamma")
+    if dist not in RANDOM_RATE_DISTS:
+        raise FieldError(f"{path}.dist", "only gamma is supported for a day factor for now "
+                         f"(expected one of: {', '.join(RANDOM_RATE_DISTS)})", dist)
+    if "cv" not in value:
+        raise FieldError(f"{path}.cv", "is required")
+    cv = as_float(value["cv"], f"{path}.cv")
+    if cv < 0:
+        raise FieldError(f"{path}.cv", "must be >= 0", value["cv"])
+    if cv > RANDOM_RATE_CV:
+        raise FieldError(f"{path}.cv", f"must be at most {RANDOM_RATE_CV:g} (a day factor "
+                         "with a larger cv is mostly near 0 with rare huge days)", value["cv"])
+    if 0 < cv < _SMALLEST_CV:
+        raise FieldError(f"{path}.cv", f"must be 0 or at least {_SMALLEST_CV:g}", value["cv"])
+    return RandomRate(cv=cv, dist=dist)
+
+
+def rate_uncertainty(sources) -> dict[str, dict]:
+    """``{source: {"dist", "cv"}}`` for every source (of the mapping name -> Source) whose day
+    factor varies (cv > 0), empty when none: the spread the fluid model leaves out, as it reads
+    the factor's mean (1)."""
+    return {n: {"dist": s.random_rate.dist, "cv": s.random_rate.cv}
+            for n, s in sources.items() if s.rate_varies}
+
+
+def rate_uncertainty_notes(sources) -> list[str]:
+    """One note per source whose day factor varies (see :func:`rate_uncertainty`)."""
+    return [f"arrivals of {n} vary by a day factor with cv {d['cv']:g} ({d['dist']}, mean 1, "
+            "drawn once per replication): the fluid model uses the mean"
+            for n, d in rate_uncertainty(sources).items()]

@@ -5,8 +5,9 @@ A destination is a path given with a flag, of one of three kinds:
 * ``file``: one file replaced whole (``--png``, and a future ``--write-scenario``): its folder
   must exist, the path must not be a folder, a device or a link to nothing;
 * ``folder``: a folder written into (``--out``), made with its parents when missing;
-* ``report``: a folder replaced whole (``--report``), made with its parents when missing; an
-  existing one must hold a report and nothing else (it is replaced whole).
+* ``report``: a folder replaced whole (``--report``, ``--csv``), made with its parents when
+  missing; an existing one must hold a report (or tables) and nothing else (it is replaced
+  whole).
 
 For each: every name in the path fits the file system (NAME_MAX, PATH_MAX), and the folder that
 will be written really takes a file (a small file is written, flushed and removed: a read-only
@@ -37,6 +38,7 @@ DESTINATIONS = {
     "out": ("--out", "folder"),
     "png": ("--png", "file"),
     "write_scenario": ("--write-scenario", "file"),
+    "csv": ("--csv", "report"),
 }
 #: Bytes written by the probe of a folder: enough to meet a full disk, small enough to be free.
 PROBE_BYTES = 64 * 1024
@@ -170,15 +172,15 @@ def check_destinations(args) -> None:
     for attr, path in given.items():
         flag, kind = DESTINATIONS[attr]
         check_destination(path, kind, flag, command)
-    report = given.get("report")
-    if report is None:
-        return
-    for attr, path in given.items():
-        if attr != "report" and (_inside(_real(path), _real(report))
-                                 or _inside(_real(report), _real(path))):
-            flag = DESTINATIONS[attr][0]
-            raise InputError(f"{command}: {flag} {path} and --report {report} overlap (the "
-                             "report folder is replaced whole): keep them apart")
+    for whole, report in given.items():  # (--report, --csv: folders replaced whole)
+        if DESTINATIONS[whole][1] != "report":
+            continue
+        for attr, path in given.items():
+            if attr != whole and (_inside(_real(path), _real(report))
+                                  or _inside(_real(report), _real(path))):
+                flag, whole_flag = DESTINATIONS[attr][0], DESTINATIONS[whole][0]
+                raise InputError(f"{command}: {flag} {path} and {whole_flag} {report} overlap "
+                                 "(the report folder is replaced whole): keep them apart")
 
 
 def scenario_inputs(scenario) -> list[Path]:

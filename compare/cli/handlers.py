@@ -49,6 +49,7 @@ def _check_step(s, dt: float) -> None:
 
 def fluid(args) -> Outcome:
     from fluid.analysis import throughput
+    from fluid.sources import rate_uncertainty, rate_uncertainty_notes
     from fluid.structure import lp_obstacles
 
     s = load(args)
@@ -58,7 +59,10 @@ def fluid(args) -> Outcome:
         raise InputError(f"fluidgap fluid: --method lp does not apply to this net (it has "
                          f"{', '.join(lp_obstacles(s))}): use --method counters or auto")
     result = throughput(s, method=args.method, dt=args.dt, cross_check=args.cross_check)
-    return finish(args, render.fluid_text(s, result), result.to_dict())
+    doc, notes = result.to_dict(), rate_uncertainty_notes(s.sources)
+    doc["rate_uncertainty"] = rate_uncertainty(s.sources)
+    text = render.fluid_text(s, result) + "".join(f"\nnote: {n}" for n in notes)
+    return finish(args, text, doc)
 
 
 def _arrivals(s):
@@ -71,22 +75,33 @@ def _arrivals(s):
 def simulate(args) -> Outcome:
     from desim import replicate
 
+    from .exports import simulation_outputs
+
     s = load(args)
     with simulation(args, s.run, arrivals=_arrivals(s)) as (settings, progress):
-        result = replicate(s, settings=settings, progress=progress, percentiles=args.percentiles)
-    return finish(args, render.simulation_text(s, result), result.to_json())
+        result = replicate(s, settings=settings, progress=progress, percentiles=args.percentiles,
+                           record_waits=args.report is not None)
+    doc = result.to_json()
+    text, report = simulation_outputs(args, s, result, render.simulation_text(s, result), doc)
+    return finish(args, text, doc, report=report)
 
 
 def compare(args) -> Outcome:
     from ..present.reports import comparison_report
     from ..study.comparison import compare as run_comparison
+    from .exports import comparison_csv
 
     s = load(args)
-    with simulation(args, s.run, arrivals=_arrivals(s)) as (settings, progress):
+    # (a day factor on a source's rates adds a run without it: compare/study/rate_flags.py)
+    runs = 2 if any(src.rate_varies for src in s.sources.values()) else 1
+    with simulation(args, s.run, arrivals=_arrivals(s), runs_per_replication=runs) as (
+            settings, progress):
         result = run_comparison(s, settings, progress=progress,
                                 record_waits=args.report is not None,
                                 percentiles=args.percentiles)
-    return finish(args, render.comparison_text(s, result), result.to_json(),
+    doc = result.to_json()
+    text = comparison_csv(args, s, result, render.comparison_text(s, result), doc)
+    return finish(args, text, doc,
                   report=lambda d: comparison_report(
                       d, result, s, caution=CAUTION, summary=render.comparison_summary(s, result)))
 

@@ -7,6 +7,7 @@ import argparse
 from fluid.scenario import Limits
 
 from . import handlers
+from .exports import add_export_flags
 from .flag_values import at_least_one, finite, positive_limit, whole
 
 __all__ = ["UsageError", "build_parser"]
@@ -115,6 +116,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also tabulate arrivals, served, abandoned, service level and queue per "
                    "interval of this length")
     _percentiles(p)
+    add_export_flags(p, report=True)
     p.set_defaults(handler=handlers.simulate)
 
     p = sub.add_parser("compare", help="the main job: fluid against simulation, gaps and flags")
@@ -124,6 +126,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="per-interval comparison step (default for profiles and schedules: their step)")
     _percentiles(p)
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    add_export_flags(p, report=False)
     p.set_defaults(handler=handlers.compare)
 
     p = sub.add_parser("station", help="single-station self-check against Erlang B/C/A, Cobham, Whitt")

@@ -170,7 +170,7 @@ def _check_names(kind: str, names) -> None:
 def write_report(directory: str | os.PathLike, *, title: str, summary_lines: list[str],
                  tables: Mapping[str, pd.DataFrame], figures: Mapping[str, Figure],
                  json_doc: Mapping[str, Any], caution: str,
-                 write_png: bool = False) -> ReportFiles:
+                 write_png: bool = False, extra_files=()) -> ReportFiles:
     """Write the report into ``directory`` (created if missing) and return the paths written.
 
     Files: ``report.html`` (one self-contained page: the caution text in a box under the title,
@@ -180,7 +180,8 @@ def write_report(directory: str | os.PathLike, *, title: str, summary_lines: lis
     ``write_png``, ``<name>.png`` per figure. Table and figure names become file names, so they
     must be plain (letters, digits, ``_ - .``). Everything is built before anything is written
     and the folder is swapped in whole (see the module docstring): if building or writing
-    fails, nothing new is left behind and an earlier report in ``directory`` is kept whole; a
+    fails, nothing new is left behind and an earlier report in ``directory`` is kept whole
+    (``extra_files``: more ``(name, bytes)`` written with them, e.g. Parquet tables); a
     ``directory`` that holds anything but a report raises :class:`ReportFolderError` before
     anything is built."""
     _check_names("table", tables)
@@ -200,6 +201,7 @@ def write_report(directory: str | os.PathLike, *, title: str, summary_lines: lis
                                          for n, t in csv_text.items()]
     if write_png:
         contents += [(f"{n}.png", png) for n, (_, png) in pngs.items()]
+    contents += list(extra_files)
     contents += [("result.json", json_text.encode("utf-8")),
                  ("report.html", page.encode("utf-8"))]
 

@@ -215,7 +215,8 @@ def replace_file(destination: str | os.PathLike, data: bytes) -> Path:
     return destination
 
 
-_REPORT_FILE = re.compile(r"report\.html|result\.json|[A-Za-z0-9][A-Za-z0-9_.-]*\.(csv|png)"
+_REPORT_FILE = re.compile(r"report\.html|result\.json"
+                          r"|[A-Za-z0-9][A-Za-z0-9_.-]*\.(csv|png|parquet)"
                           r"|\..+\.tmp")
 
 

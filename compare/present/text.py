@@ -34,7 +34,8 @@ def describe_dist(d: Any) -> str:
 
 
 def _source_text(src) -> str:
-    return src.arrivals.describe(fmt)
+    day = f", {src.random_rate.describe()}" if src.rate_varies else ""
+    return src.arrivals.describe(fmt) + day
 
 
 def _pool_text(pool) -> str:
@@ -272,6 +273,7 @@ FLAG_TITLES = {
     "near_critical": "near critical load",
     "target_missed": "target missed",
     "unstable": "unstable",
+    "rate_uncertainty": "rate uncertainty",
 }
 
 

@@ -23,6 +23,7 @@ from fluid.scenario import Scenario
 from .flags import Flag, find_flags
 from .gap import GAP_CONVENTION
 from .gaps import Gaps, gap_tables
+from .rate_flags import RateCheck, rate_check, rate_uncertainty_notes
 from .transient import default_interval, transient_table
 
 __all__ = ["Comparison", "compare"]
@@ -37,7 +38,9 @@ class Comparison:
     :class:`compare.flags.Flag`; ``transient``: the per-interval table (columns interval, start,
     end, metric, name, fluid, mean, low, high, n) or None; ``settings``: the simulation settings
     used; ``notes``: caveats; ``verdicts``: False with fewer than two replications, where no
-    interval exists and so no flag is judged (``flags`` is empty and says nothing)."""
+    interval exists and so no flag is judged (``flags`` is empty and says nothing); ``rate``:
+    the day factors of the sources and the run without them
+    (:class:`compare.study.rate_flags.RateCheck`)."""
 
     scenario_name: str
     time_unit: str
@@ -51,6 +54,7 @@ class Comparison:
     notes: tuple[str, ...] = ()
     scenario: Scenario | None = field(default=None, repr=False, compare=False)
     verdicts: bool = True
+    rate: RateCheck = field(default_factory=lambda: RateCheck({}))
 
     def flags_of(self, kind: str) -> tuple[Flag, ...]:
         return tuple(f for f in self.flags if f.kind == kind)
@@ -66,8 +70,9 @@ class Comparison:
         """``{"scenario", "time_unit", "settings", "fluid", "simulation", "gaps", "gap_convention",
         "flags", "transient", "interval", "notes"}`` (design.md §5; ``gap_convention``: the one
         sign convention of every gap, :data:`compare.study.gap.GAP_CONVENTION`), and
-        ``"verdicts"`` (False: fewer than two replications, flags not judged); nan and inf become
-        null."""
+        ``"verdicts"`` (False: fewer than two replications, flags not judged), ``"rate_uncertainty"``
+        (the day factors and the targets judged without them, see
+        :meth:`compare.study.rate_flags.RateCheck.to_json`); nan and inf become null."""
         transient = None
         if self.transient is not None:
             transient = json_ready(self.transient.to_dict("records"))
@@ -84,6 +89,7 @@ class Comparison:
             "interval": self.interval,
             "notes": list(self.notes),
             "verdicts": self.verdicts,
+            "rate_uncertainty": json_ready(self.rate.to_json()),
         }
 
 
@@ -120,6 +126,10 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
     # read as a verdict; none is given instead)
     verdicts = sim.replications >= MIN_REPLICATIONS_FOR_VERDICTS
     flags = find_flags(scenario, fluid, sim, gaps) if verdicts else ()
+    # (a second run without the day factors, only when a source has one)
+    rate = rate_check(scenario, sim, settings, judge=verdicts, progress=progress,
+                      percentiles=percentiles)
+    flags += rate.flags
     if not verdicts:
         notes.append(no_verdict(sim.replications))
     transient = None
@@ -131,12 +141,13 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
                      f"[{settings.warmup:g}, {settings.horizon:g}] of the fluid trajectory")
     if sim.unstable_replications:
         notes.append(f"{sim.unstable_replications} replications stopped at the job cap")
+    notes += rate_uncertainty_notes(scenario)
     notes += [f"fluid: {n}" for n in fluid.notes]
     notes += [f"simulation: {w}" for w in sim.warnings]
     return Comparison(
         scenario_name=scenario.name, time_unit=scenario.time_unit, settings=settings,
         fluid=fluid, simulation=sim, gaps=gaps, flags=flags, transient=transient,
-        interval=interval, notes=tuple(notes), scenario=scenario, verdicts=verdicts,
+        interval=interval, notes=tuple(notes), scenario=scenario, verdicts=verdicts, rate=rate,
     )
 
 

@@ -67,6 +67,9 @@ ABANDONMENT_TOLERANCE = 0.01
 DOWNSTREAM_SHARE = 0.10
 NEAR_CRITICAL = (0.85, 1.15)
 TREND_SHARE = 0.5
+#: The flag of compare/study/rate_flags.py: a day factor on the rates, not queueing randomness,
+#: makes a target miss (judged there, from a second run without the factor).
+FLAG_KINDS += ("rate_uncertainty",)
 
 STAFF_ADVICE = "or run `fluidgap staff` for the cheapest staffing that meets the targets"
 
