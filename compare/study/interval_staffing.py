@@ -69,9 +69,10 @@ Evaluator = Callable[[Mapping[str, Sequence[int]]], Mapping[tuple[str, int], Est
 # --- the interval grid and the fluid start ------------------------------------------------------
 
 
-def interval_grid(scenario: Scenario, step: float | None = None) -> tuple[float, int]:
+def interval_grid(scenario: Scenario, step: float | None = None,
+                  horizon: float | None = None) -> tuple[float, int]:
     """``(step, count)``: the interval length (given, or the shortest profile or schedule step of
-    the scenario) and the number of intervals covering ``[0, horizon]``."""
+    the scenario) and the number of intervals covering ``[0, horizon]`` (default: the run's)."""
     if step is None:
         steps = [s for src in scenario.sources.values() for s in src.arrivals.steps]
         steps += [p.schedule.step for p in scenario.pools.values() if p.schedule is not None]
@@ -81,7 +82,8 @@ def interval_grid(scenario: Scenario, step: float | None = None) -> tuple[float,
     step = float(step)
     if not (math.isfinite(step) and step > 0):
         raise ValueError(f"the interval must be a number > 0 (got {step!r})")
-    count = max(1, math.ceil(scenario.run.horizon / step - 1e-9))
+    horizon = scenario.run.horizon if horizon is None else horizon
+    count = max(1, math.ceil(horizon / step - 1e-9))
     return step, count
 
 
@@ -333,17 +335,20 @@ def interval_staff(
     schedule step); ``settings`` and the keywords as for :func:`compare.compare`;
     ``evaluator``: replaces the simulation (tests); ``sweep``: an open :class:`Sweep` to run
     in (the shift plan shares one)."""
-    step, count = interval_grid(scenario, step)
     targets = interval_targets(scenario)
     if not targets:
         raise ValueError("the scenario sets no targets: nothing to staff for")
     with contextlib.ExitStack() as stack:
-        if evaluator is None and sweep is None:
+        if sweep is not None:
+            cfg = sweep.settings
+            step, count = interval_grid(scenario, cfg.interval, cfg.horizon)
+        else:
             cfg = resolve_settings(scenario.run, settings, reps=reps, seed=seed,
-                                   workers=workers, executor=executor, interval=step)
-            sweep = stack.enter_context(Sweep(cfg, progress))
-        cfg = sweep.settings if sweep is not None else resolve_settings(
-            scenario.run, settings, reps=reps, seed=seed, interval=step)
+                                   workers=workers, executor=executor)
+            step, count = interval_grid(scenario, step, cfg.horizon)
+            cfg = cfg.with_changes(interval=step)
+            if evaluator is None:
+                sweep = stack.enter_context(Sweep(cfg, progress))
         if evaluator is None:
             evaluator = simulated_evaluator(scenario, sweep, step)
         judged = tuple(i for i in range(count) if i * step >= cfg.warmup - 1e-9 * step)

@@ -68,11 +68,11 @@ def shift_columns(scenario: Scenario) -> tuple[ShiftColumn, ...]:
                  for n, s in scenario.shifts.items() for t in s.starts)
 
 
-def coverage_matrix(scenario: Scenario, columns, pool: str, step: float,
-                    count: int) -> np.ndarray:
+def coverage_matrix(scenario: Scenario, columns, pool: str, step: float, count: int,
+                    horizon: float | None = None) -> np.ndarray:
     """Intervals × columns of ``pool``: 1 when the column's agent is on duty for the whole
-    interval ``[i·step, min((i+1)·step, horizon))``."""
-    horizon = scenario.run.horizon
+    interval ``[i·step, min((i+1)·step, horizon))`` (horizon: default the run's)."""
+    horizon = scenario.run.horizon if horizon is None else horizon
     mine = [c for c in columns if c.pool == pool]
     a = np.zeros((count, len(mine)))
     for j, c in enumerate(mine):
@@ -163,13 +163,13 @@ class ShiftPlan:
         }
 
 
-def _cover(scenario, columns, requirement: Mapping[str, tuple[int, ...]], step, count):
+def _cover(columns, requirement: Mapping[str, tuple[int, ...]], cover_of, step):
     """Counts per column (all pools), cost, LP bound and staff per pool."""
     counts = [0] * len(columns)
     cost, bound, staff = 0.0, 0.0, {}
     for pool, need in requirement.items():
         idx = [j for j, c in enumerate(columns) if c.pool == pool]
-        a = coverage_matrix(scenario, columns, pool, step, count)
+        a = cover_of(pool)
         if not idx and any(need):
             raise CoverError(f"no shift pattern is for pool {pool}")
         try:
@@ -194,11 +194,11 @@ def _interval(exc, step) -> str:
     return f"{i * step:g} to {(i + 1) * step:g}"
 
 
-def _staff_of(scenario, columns, counts, step, count) -> dict[str, tuple[int, ...]]:
+def _staff_of(scenario, columns, counts, cover_of) -> dict[str, tuple[int, ...]]:
     out = {}
     for pool in scenario.pools:
         idx = [j for j, c in enumerate(columns) if c.pool == pool]
-        a = coverage_matrix(scenario, columns, pool, step, count)
+        a = cover_of(pool)
         out[pool] = tuple(int(v) for v in a @ np.array([counts[j] for j in idx], dtype=float))
     return out
 
@@ -215,12 +215,12 @@ def _misses(req: IntervalStaffing, estimates) -> dict[str, list[int]]:
     return {p: sorted(v) for p, v in out.items() if v}
 
 
-def _repair(scenario, columns, counts, misses, step, count) -> list[str]:
+def _repair(columns, counts, misses, cover_of) -> list[str]:
     """Add one agent on the cheapest column covering each missing pool-interval (in place)."""
     added = []
     for pool, intervals in misses.items():
         idx = [j for j, c in enumerate(columns) if c.pool == pool]
-        a = coverage_matrix(scenario, columns, pool, step, count)
+        a = cover_of(pool)
         left = set(intervals)
         for i in intervals:
             if i not in left:
@@ -263,7 +263,11 @@ def shift_plan(
     per-interval staffing already computed (not simulated again)."""
     if not scenario.shifts:
         raise ValueError("the scenario has no shift patterns (shifts:)")
-    step, count = interval_grid(scenario, step if requirement is None else requirement.step)
+    cfg = resolve_settings(scenario.run, settings, reps=reps, seed=seed, workers=workers,
+                           executor=executor)
+    step, count = interval_grid(scenario, step if requirement is None else requirement.step,
+                                cfg.horizon)
+    cfg = cfg.with_changes(interval=step)
     columns = shift_columns(scenario)
     for pool in scenario.pools:
         if not any(c.pool == pool for c in columns):
@@ -271,15 +275,16 @@ def shift_plan(
     with contextlib.ExitStack() as stack:
         sweep = None
         if evaluator is None:
-            cfg = resolve_settings(scenario.run, settings, reps=reps, seed=seed,
-                                   workers=workers, executor=executor, interval=step)
             sweep = stack.enter_context(Sweep(cfg, progress))
         if requirement is None:
-            requirement = interval_staff(scenario, step=step, max_iterations=max_iterations,
-                                         evaluator=evaluator, sweep=sweep)
+            requirement = interval_staff(scenario, cfg, step=step,
+                                         max_iterations=max_iterations, evaluator=evaluator,
+                                         sweep=sweep)
         check = evaluator or simulated_evaluator(scenario, sweep, step, label="shifts")
-        counts, cover_cost, bound, staff = _cover(scenario, columns, requirement.staff,
-                                                  step, count)
+        matrices = {p: coverage_matrix(scenario, columns, p, step, count, cfg.horizon)
+                    for p in scenario.pools}
+        cover_of = matrices.__getitem__
+        counts, cover_cost, bound, staff = _cover(columns, requirement.staff, cover_of, step)
         cover_counts = tuple(counts)
         repairs, checks, estimates = [], 0, {}
         while True:
@@ -288,16 +293,16 @@ def shift_plan(
             misses = _misses(requirement, estimates)
             if not misses or checks > max_repairs:
                 break
-            added = _repair(scenario, columns, counts, misses, step, count)
+            added = _repair(columns, counts, misses, cover_of)
             if not added:
                 break
             repairs += added
-            staff = _staff_of(scenario, columns, counts, step, count)
+            staff = _staff_of(scenario, columns, counts, cover_of)
         meets = not _misses(requirement, estimates)
         flat = {p: max((v[i] for i in requirement.judged), default=0)
                 for p, v in requirement.staff.items()}
         flat_counts, flat_cost, _, flat_staff = _cover(
-            scenario, columns, {p: (n,) * count for p, n in flat.items()}, step, count)
+            columns, {p: (n,) * count for p, n in flat.items()}, cover_of, step)
         flat_est = dict(check(flat_staff))
         flat_meets = not _misses(requirement, flat_est)
     notes = list(requirement.notes)
