@@ -27,7 +27,7 @@ from .fields import name as _name, number as _real
 __all__ = ["ShiftBreak", "ShiftPattern", "parse_shifts", "SHIFT_KEYS", "MAX_STARTS"]
 
 SHIFT_KEYS = ("pool", "starts", "length", "breaks", "cost")
-#: Start times one pattern may list (a bound on the columns of the covering program).
+#: Start times all patterns together may list (a bound on the columns of the covering program).
 MAX_STARTS = 10_000
 #: Breaks one pattern may list.
 MAX_BREAKS = 20
@@ -90,10 +90,11 @@ def _starts(value: Any, path: str) -> tuple[float, ...]:
         every = _real(value["every"], f"{path}.every", strict=True)
         if last < first:
             raise FieldError(f"{path}.last", f"must be >= first ({first:g})", value["last"])
-        count = int((last - first) / every + 1e-9) + 1
+        count = (last - first) / every + 1  # (a float first: a tiny step must not overflow)
         if count > MAX_STARTS:
-            raise FieldError(path, f"gives {count:,} start times, more than {MAX_STARTS:,}",
+            raise FieldError(path, f"gives {count:.3g} start times, more than {MAX_STARTS:,}",
                              value)
+        count = int((last - first) / every + 1e-9) + 1
         return tuple(first + k * every for k in range(count))
     if not isinstance(value, list) or not value:
         raise FieldError(path, "must be a non-empty list of times or {first, last, every}",
@@ -139,7 +140,7 @@ def parse_shifts(doc: Mapping, pools: Mapping) -> dict[str, ShiftPattern]:
     """``shifts:`` (a mapping name -> pattern, already known to be a mapping) as
     :class:`ShiftPattern` objects; ``pools``: the scenario's pools (names checked). Raises
     :class:`~fluid.errors.FieldError` naming the field."""
-    out = {}
+    out, columns = {}, 0
     for key, spec in doc.items():
         n = _name(key, f"shifts.{key}")
         path = f"shifts.{n}"
@@ -160,6 +161,10 @@ def parse_shifts(doc: Mapping, pools: Mapping) -> dict[str, ShiftPattern]:
         starts = _starts(spec["starts"], f"{path}.starts")
         breaks = _breaks(spec.get("breaks", []), f"{path}.breaks", length)
         cost = _real(spec.get("cost", 1.0), f"{path}.cost")
+        columns += len(starts)
+        if columns > MAX_STARTS:
+            raise FieldError(f"{path}.starts", f"brings the start times of all shifts to "
+                             f"{columns:,}, more than {MAX_STARTS:,}")
         out[n] = ShiftPattern(name=n, pool=pool, starts=starts, length=length, breaks=breaks,
                               cost=cost)
     return out

@@ -19,7 +19,7 @@ target and any net):
    interval (see below), add one agent there and remember that the old staff was too few (a
    floor); otherwise take one agent away if that stays at or above the floor.
    A target place is served by the pools that take jobs from it; the abandonment target by the
-   pools that serve a place with patience.
+   pools that serve a place with patience. A pool no target judges keeps its start.
 4. Repeat until the staff stops changing (converged: every interval meets its targets with
    confidence in the last simulation, and no interval can go lower) or ``max_iterations``
    simulations have run (reported as not converged).
@@ -301,6 +301,8 @@ def iterate_staffing(scenario: Scenario, evaluate: Evaluator, start: Mapping[str
         new = {p: list(v) for p, v in staff.items()}
         for p in staff:
             mine = [t for t, pools in serving.items() if p in pools]
+            if not mine:  # no target judges this pool: it keeps its fluid start
+                continue
             for i in judged:
                 states = [verdict(targets[t], estimates.get((t, i))) for t in mine]
                 s = staff[p][i]
@@ -356,6 +358,11 @@ def interval_staff(
         staff, estimates, history, converged = iterate_staffing(
             scenario, evaluator, start, judged, max_iterations=max_iterations)
     notes = []
+    judged_pools = {p for pools in serving_pools(scenario).values() for p in pools}
+    for p in scenario.pools:
+        if p not in judged_pools:
+            notes.append(f"no target judges pool {p}: it keeps its starting staff (the fluid "
+                         "offered work per interval with square-root safety)")
     if not converged:
         notes.append(f"the staff still changed after {max_iterations} simulations: the last "
                      "simulated staff is shown (not converged)")

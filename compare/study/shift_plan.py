@@ -47,6 +47,8 @@ from .sweep import Sweep
 __all__ = ["ShiftColumn", "ShiftPlan", "shift_columns", "coverage_matrix", "shift_plan",
            "DEFAULT_REPAIRS", "CoverError"]
 
+#: Cells of one pool's coverage matrix (starts × intervals) at most (8 bytes each).
+MAX_CELLS = 5_000_000
 #: Repair rounds (simulations after the first check of the plan) at most.
 DEFAULT_REPAIRS = 8
 
@@ -71,15 +73,22 @@ def shift_columns(scenario: Scenario) -> tuple[ShiftColumn, ...]:
 def coverage_matrix(scenario: Scenario, columns, pool: str, step: float, count: int,
                     horizon: float | None = None) -> np.ndarray:
     """Intervals × columns of ``pool``: 1 when the column's agent is on duty for the whole
-    interval ``[i·step, min((i+1)·step, horizon))`` (horizon: default the run's)."""
+    interval ``[i·step, min((i+1)·step, horizon))`` (horizon: default the run's; the rule of
+    :meth:`fluid.shifts.ShiftPattern.covers`). Refuses (:class:`CoverError`) more than
+    :data:`MAX_CELLS` cells."""
     horizon = scenario.run.horizon if horizon is None else horizon
     mine = [c for c in columns if c.pool == pool]
+    if len(mine) * count > MAX_CELLS:
+        raise CoverError(f"{len(mine):,} shift starts of pool {pool} over {count:,} intervals "
+                         f"make more than {MAX_CELLS:,} cells: give fewer start times or a "
+                         "longer interval")
+    lo = np.arange(count) * step
+    hi = np.minimum(lo + step, horizon)
+    eps = 1e-9 * np.maximum(1.0, np.abs(hi))
     a = np.zeros((count, len(mine)))
     for j, c in enumerate(mine):
-        pattern = scenario.shifts[c.shift]
-        for i in range(count):
-            lo, hi = i * step, min((i + 1) * step, horizon)
-            a[i, j] = 1.0 if pattern.covers(c.start, lo, hi) else 0.0
+        for start, end in scenario.shifts[c.shift].on_duty(c.start):
+            a[(start <= lo + eps) & (end >= hi - eps), j] = 1.0
     return a
 
 
