@@ -18,6 +18,9 @@ def wants_day(args, s) -> bool:
     ``--interval`` given, or a scenario with a profile, trace or schedule (not ``--fluid-only``,
     which keeps the flat fluid plan)."""
     if args.fluid_only:
+        if args.shifts or args.write_scenario:
+            raise InputError("fluidgap staff: --shifts and --write-scenario simulate the plan: "
+                             "leave out --fluid-only")
         return False
     return bool(args.shifts or args.write_scenario or args.interval is not None
                 or s.has_time_variation)

@@ -46,12 +46,17 @@ def _target_heads(targets, unit) -> list[str]:
     return heads
 
 
+def _times(n: int, word: str) -> str:
+    return f"{n} {word}" + ("" if n == 1 else "s")
+
+
 def _run_line(req) -> str:
     s = req.settings
     state = ("converged: the staff stopped changing" if req.converged
              else "NOT converged (iteration cap reached)")
     return (f"iterative staffing algorithm (practical variant of Feldman, Massey, Mandelbaum "
-            f"and Whitt 2008): {req.iterations} simulations, {state}; {s['replications']} "
+            f"and Whitt 2008): {_times(req.iterations, 'simulation')}, {state}; "
+            f"{s['replications']} "
             f"replications each, seed {s['seed']} (common random numbers); intervals of "
             f"{req.step:g} {req.time_unit}; estimates are mean [95 % interval over "
             "replications] by arrival interval")
@@ -95,7 +100,8 @@ def _cost_line(plan) -> str:
     saving = plan.flat_cost - plan.cost
     share = f" ({saving / plan.flat_cost:.1%} less)" if plan.flat_cost > 0 else ""
     return (f"shift plan cost {fmt(plan.cost)} (covering program {fmt(plan.cover_cost)}, LP "
-            f"bound {fmt(plan.lp_bound)}, {len(plan.repairs)} shifts added by the checks); flat "
+            f"bound {fmt(plan.lp_bound)}, {_times(len(plan.repairs), 'shift')} added by the "
+            "checks); flat "
             f"plan (peak requirement all day: {flat}) on the same shifts costs "
             f"{fmt(plan.flat_cost)}: the shift plan saves {fmt(saving)}{share}")
 
@@ -119,7 +125,7 @@ def shift_plan_text(s, plan) -> str:
                  else "the flat plan does NOT meet every interval (simulated)")
     parts = [f"{req.scenario_name}: shift plan", _run_line(req),
              format_table(heads, rows, title="staff per interval (achieved: the shift plan, "
-                          f"{plan.checks} simulations with the same seed):"),
+                          f"{_times(plan.checks, 'simulation')} with the same seed):"),
              format_table(["shift", "pool", "start", "end", "agents", "cost"], shifts,
                           title="shifts worked:"),
              _cost_line(plan), verdict_line + "; " + flat_line]

@@ -66,3 +66,8 @@ def test_refusals(capsys, tmp_path):
     # the scenario file itself is never overwritten
     code, _, err = run(capsys, "staff", DAY, "--shifts", "--write-scenario", DAY, *FAST)
     assert code == 2 and "never overwritten" in err
+
+
+def test_shifts_with_fluid_only_is_refused(capsys):
+    code, _, err = run(capsys, "staff", DAY, "--shifts", "--fluid-only", "--quiet")
+    assert code == 2 and "leave out --fluid-only" in err
