@@ -37,7 +37,7 @@ def shift_figure(result, *, title: str | None = None) -> Figure:
     shown = [t for t in targets if any((t, i) in estimates for i in req.judged)]
     step, unit = req.step, req.time_unit
     with mpl.rc_context(_STYLE):
-        fig = Figure(figsize=(8.0, 1.0 + 2.2 * (len(pools) + len(shown))), layout="constrained")
+        fig = Figure(figsize=(9.5, 1.0 + 2.2 * (len(pools) + len(shown))), layout="constrained")
         axes = fig.subplots(len(pools) + len(shown), 1, sharex=True, squeeze=False)[:, 0]
         for ax, pool in zip(axes, pools):
             x, y = _steps(req.staff[pool], step)
@@ -53,7 +53,7 @@ def shift_figure(result, *, title: str | None = None) -> Figure:
                            label=f"flat plan ({plan.flat[pool]} all day)")
             ax.set_ylabel("agents")
             ax.set_title(f"staff of {pool}", pad=4)
-            ax.legend(loc="upper right", fontsize=7, frameon=False)
+            ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=7, frameon=False)
         mids = (np.array(req.judged) + 0.5) * step
         for ax, t in zip(axes[len(pools):], shown):
             spec = req.targets[t]
@@ -78,8 +78,10 @@ def shift_figure(result, *, title: str | None = None) -> Figure:
                     f"service level at {t} (within {spec['within']:g} {unit})")
             ax.set_title(what, pad=4)
             ax.set_ylabel("share")
-            ax.set_ylim(0, 1.02)
-            ax.legend(loc="lower right", fontsize=7, frameon=False)
+            lows = [m - d for m, d in zip(means, lo) if math.isfinite(m)]
+            bottom = min([level, *lows]) if lows else level
+            ax.set_ylim(max(0.0, bottom - 0.05), 1.02)
+            ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=7, frameon=False)
         axes[-1].set_xlabel(f"time ({unit} from the start of the run)")
         fig.suptitle(title or (f"{req.scenario_name}: "
                                + ("shift plan" if plan is not None else "staff per interval")))
