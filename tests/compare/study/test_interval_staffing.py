@@ -208,3 +208,25 @@ shifts:
             assert m[i, j] == s.shifts["a"].covers(c.start, 30 * i, 30 * i + 30)
     # by hand: starting at 0, on duty 0-30, 45-60, 70-90: only interval 0 is wholly covered
     assert list(m[:, 0]) == [1, 0, 0, 0, 0, 0, 0, 0]
+
+
+def test_interval_estimates_come_from_replications():
+    # the estimate the algorithm judges, per interval, is the Student t interval over the
+    # replications' own service levels (n = replications), not a binomial interval pooled over
+    # callers (who are correlated within a run)
+    from compare.study.interval_staffing import simulated_evaluator
+    from compare.study.sweep import Sweep
+    from desim import resolve_settings
+
+    s = station(rates=[1.0, 3.0], step=60, horizon=120, reps=5, seed=8)
+    cfg = resolve_settings(s.run, workers=1, interval=60.0)
+    with Sweep(cfg) as sweep:
+        got = simulated_evaluator(s, sweep, 60.0)({"agents": (4, 10)})
+        sim = sweep.run(with_schedules(s, {"agents": (4, 10)}, 60.0), "again")
+    for i in range(2):
+        values = [float(t[(t.metric == "service_level") & (t.interval == i)]["value"].iloc[0])
+                  for t in (run.intervals for run in sim.runs)]
+        est = Estimate.from_values(values, bounds=(0.0, 1.0))
+        assert got[("queue", i)].n == 5
+        assert (got[("queue", i)].low, got[("queue", i)].high) == pytest.approx(
+            (est.low, est.high))
