@@ -38,6 +38,7 @@ from .scenario import (
     Targets,
     Transition,
 )
+from .shifts import parse_shifts
 from .sources import PoissonArrivals, ProfileArrivals, TraceArrivals, parse_random_rate
 from .overrides import apply_override, parse_override
 from .validation import check_structure, short_plans
@@ -53,7 +54,8 @@ __all__ = [
     "ScenarioWarning",
 ]
 
-TOP_KEYS = ("name", "time_unit", "run", "sources", "pools", "places", "transitions", "targets")
+TOP_KEYS = ("name", "time_unit", "run", "sources", "pools", "places", "transitions", "targets",
+            "shifts")
 ROUTE_TOLERANCE = 1e-9
 
 
@@ -280,6 +282,7 @@ def _build(doc: Mapping, file: str, base_dir: str | None, limits: Limits,
     transitions = {n: _build_transition(n, spec) for n, spec in transitions_doc.items()}
     _check_outcomes(transitions_doc, places)
     targets = _build_targets(_mapping(doc.get("targets"), "targets"))
+    shifts = parse_shifts(_mapping(doc.get("shifts"), "shifts"), pools)
     try:
         document = json.dumps(doc)
     except (TypeError, ValueError):  # a date, a set, ... left where no reader looked
@@ -294,6 +297,7 @@ def _build(doc: Mapping, file: str, base_dir: str | None, limits: Limits,
         places=FrozenMap(places),
         transitions=FrozenMap(transitions),
         targets=targets,
+        shifts=FrozenMap(shifts),
         file=file,
         document=document,
         base_dir=str(base),

@@ -235,6 +235,7 @@ class Scenario:
     places: FrozenMap  # name -> Place
     transitions: FrozenMap  # name -> Transition
     targets: Targets
+    shifts: FrozenMap = field(default_factory=FrozenMap)  # name -> fluid.shifts.ShiftPattern
     file: str = "<string>"
     document: str = field(default="{}", repr=False, compare=False)
     base_dir: str | None = field(default=None, repr=False, compare=False)

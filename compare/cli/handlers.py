@@ -290,6 +290,10 @@ def staff(args) -> Outcome:
     from ..study.staffing_search import staff_search
 
     s = load(args)
+    from .staff_day import staff_day, wants_day
+
+    if wants_day(args, s):  # a day of intervals (profiles, schedules, --shifts): per interval
+        return staff_day(args, s)
     costs = _parse_costs(args.cost, s)
     # (the search judges each staffing by the intervals of its targets: it needs two runs or
     # more; the fluid-only search simulates nothing)

@@ -86,6 +86,20 @@ def _percentiles(p: argparse.ArgumentParser) -> None:
                    help="wait percentiles per waiting place, in percent (default: 50 80 90 95)")
 
 
+def _staff_day_options(p: argparse.ArgumentParser) -> None:
+    """Staffing per interval and shift plans (compare/cli/staff_day.py)."""
+    p.add_argument("--interval", type=finite, metavar="STEP",
+                   help="staff per interval of this length (default for profiles and "
+                   "schedules: their shortest step)")
+    p.add_argument("--shifts", action="store_true",
+                   help="cover the staff per interval with the scenario's shift patterns "
+                   "(shifts:) at least cost, then simulate and repair the plan")
+    p.add_argument("--write-scenario", metavar="FILE", dest="write_scenario",
+                   help="with --shifts: write the scenario with the plan as its schedules")
+    p.add_argument("--max-iterations", type=whole, metavar="N", dest="max_iterations",
+                   help="simulations of the iterative staffing algorithm at most (default 15)")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="fluidgap",
@@ -187,6 +201,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="stop at the fluid plan (no simulation)")
     p.add_argument("--png", metavar="FILE", help="write the figure of the plans as a PNG file")
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
+    _staff_day_options(p)
     _simulation_options(p)
     p.set_defaults(handler=handlers.staff)
     return parser
