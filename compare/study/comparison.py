@@ -116,15 +116,15 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
     sim = replicate(scenario, settings=settings, progress=progress, record_waits=record_waits,
                     percentiles=percentiles)
     gaps = gap_tables(scenario, fluid, sim)
-    # (with one replication every interval is empty, so no flag could fire: "no flags" would
-    # read as a verdict; none is given instead)
-    verdicts = sim.replications >= MIN_REPLICATIONS_FOR_VERDICTS
-    flags = find_flags(scenario, fluid, sim, gaps) if verdicts else ()
-    if not verdicts:
-        notes.append(no_verdict(sim.replications))
     transient = None
     if sim.intervals is not None:
         transient = transient_table(scenario, sim.intervals, fluid.counters, settings.horizon)
+    # (with one replication every interval is empty, so no flag could fire: "no flags" would
+    # read as a verdict; none is given instead)
+    verdicts = sim.replications >= MIN_REPLICATIONS_FOR_VERDICTS
+    flags = find_flags(scenario, fluid, sim, gaps, transient) if verdicts else ()
+    if not verdicts:
+        notes.append(no_verdict(sim.replications))
     notes.append(f"fluid model compared with: {fluid.model}")
     if scenario.has_time_variation:
         notes.append("time-varying scenario: fluid figures are means over the window "
