@@ -58,7 +58,12 @@ def fluid(args) -> Outcome:
         raise InputError(f"fluidgap fluid: --method lp does not apply to this net (it has "
                          f"{', '.join(lp_obstacles(s))}): use --method counters or auto")
     result = throughput(s, method=args.method, dt=args.dt, cross_check=args.cross_check)
-    return finish(args, render.fluid_text(s, result), result.to_dict())
+    doc = result.to_dict()
+    if any(p.schedule is not None for p in s.pools.values()):
+        from ..present.day_text import schedule_rows
+
+        doc["schedule_per_interval"] = schedule_rows(s)  # (the staff above is its mean)
+    return finish(args, render.fluid_text(s, result), doc)
 
 
 def _arrivals(s):

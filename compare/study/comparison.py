@@ -20,6 +20,7 @@ from fluid.analysis import FluidResult, throughput
 from fluid.json_values import json_ready
 from fluid.scenario import Scenario
 
+from .day_table import day_table
 from .flags import Flag, find_flags
 from .gap import GAP_CONVENTION
 from .gaps import Gaps, gap_tables
@@ -84,6 +85,10 @@ class Comparison:
             "interval": self.interval,
             "notes": list(self.notes),
             "verdicts": self.verdicts,
+            # one row per interval (compare.study.day_table), when there is a per-interval table
+            "per_interval_day": (None if self.transient is None or self.scenario is None else
+                                 json_ready(day_table(self.scenario, self.transient)
+                                            .to_dict("records"))),
         }
 
 

@@ -33,7 +33,8 @@ from fluid.offered import offered_rates, pool_work
 from fluid.scenario import Scenario
 from fluid.structure import waiting_places
 
-__all__ = ["DAY_FIGURES", "day_table", "interval_arrival_rates", "scheduled_staff"]
+__all__ = ["DAY_FIGURES", "day_table", "interval_arrival_rates", "interval_offered_work",
+           "scheduled_staff"]
 
 #: (metric of the tidy table, column prefix of the wide one), in the order of the columns.
 DAY_FIGURES = (("arrivals", "arrivals"), ("staff", "staff"), ("busy", "occupancy"),
@@ -65,7 +66,9 @@ def interval_arrival_rates(scenario: Scenario, start: float, end: float) -> dict
             for n, s in scenario.sources.items()}
 
 
-def _offered(scenario: Scenario, start: float, end: float) -> dict[str, float]:
+def interval_offered_work(scenario: Scenario, start: float, end: float) -> dict[str, float]:
+    """Pool -> fluid offered load (agents busy, every pool unlimited) at the mean arrival rates
+    of ``[start, end]`` (:func:`fluid.offered.pool_work`)."""
     rates = interval_arrival_rates(scenario, start, end)
     return pool_work(scenario, offered_rates(scenario, arrival_rates=rates)[1])
 
@@ -98,7 +101,7 @@ def day_table(scenario: Scenario, transient: pd.DataFrame) -> pd.DataFrame:
     present = set(zip(t["metric"], t["name"]))
     has_fluid = "fluid" in t.columns
     for i, row in rows.items():
-        offered = _offered(scenario, row["start"], row["end"])
+        offered = interval_offered_work(scenario, row["start"], row["end"])
         for r, pool in scenario.pools.items():
             row[f"scheduled.{r}"] = scheduled_staff(pool, row["start"], row["end"])
             row[f"offered.{r}"] = offered[r]
