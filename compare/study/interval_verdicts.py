@@ -189,7 +189,8 @@ def interval_flags(scenario: Scenario, transient: pd.DataFrame | None) -> tuple[
             impatient = [p for p in waiting_places(scenario)
                          if scenario.places[p].patience is not None]
             place = impatient[0] if len(impatient) == 1 else None
-            why = f"{len(impatient)} places with patience" if place is None else ""
+            why = ("" if place is not None else "no place has patience" if not impatient
+                   else f"{len(impatient)} places have patience")
             flags.append(Flag(INTERVAL_KIND, "abandonment", (
                 f"abandonment lies wholly above the maximum {_pct(cap)} "
                 f"{_count(missed, judged, len(rows))}: "
