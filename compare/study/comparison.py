@@ -67,8 +67,9 @@ class Comparison:
         """``{"scenario", "time_unit", "settings", "fluid", "simulation", "gaps", "gap_convention",
         "flags", "transient", "interval", "notes"}`` (design.md §5; ``gap_convention``: the one
         sign convention of every gap, :data:`compare.study.gap.GAP_CONVENTION`), and
-        ``"verdicts"`` (False: fewer than two replications, flags not judged); nan and inf become
-        null."""
+        ``"verdicts"`` (False: fewer than two replications, flags not judged) and
+        ``"per_interval_day"`` (the wide per-interval table of :mod:`compare.study.day_table`,
+        one record per interval, or null); nan and inf become null."""
         transient = None
         if self.transient is not None:
             transient = json_ready(self.transient.to_dict("records"))
