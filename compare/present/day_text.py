@@ -81,15 +81,15 @@ def schedule_rows(s: Scenario, horizon: float | None = None) -> list[dict]:
     """Per interval of the shortest profile or schedule step over ``horizon`` (default the run
     horizon; time units): ``{"interval", "start", "end", "clock", "staff": {pool: scheduled},
     "offered": {pool: fluid offered load in agents}}``, for ``fluid`` and its JSON."""
-    from ..study.day_table import interval_offered_work, scheduled_staff
+    from ..study.day_table import IntervalLoads, scheduled_staff
     from ..study.transient import default_interval
 
     h = s.run.horizon if horizon is None else horizon
     step = default_interval(s, h)
-    rows, i = [], 0
+    rows, i, loads = [], 0, IntervalLoads(s)
     while i * step < h * (1 - 1e-12):
         start, end = i * step, min((i + 1) * step, h)
-        offered = interval_offered_work(s, start, end)
+        offered = loads.work(start, end)
         rows.append({"interval": i, "start": start, "end": end,
                      "clock": clock_range(s, start, end),
                      "staff": {r: scheduled_staff(p, start, end) for r, p in s.pools.items()},

@@ -33,7 +33,7 @@ from fluid.offered import offered_rates, pool_work
 from fluid.scenario import Scenario
 from fluid.structure import waiting_places
 
-__all__ = ["DAY_FIGURES", "day_table", "interval_arrival_rates", "interval_offered_work",
+__all__ = ["DAY_FIGURES", "IntervalLoads", "day_table", "interval_arrival_rates",
            "scheduled_staff"]
 
 #: (metric of the tidy table, column prefix of the wide one), in the order of the columns.
@@ -66,11 +66,48 @@ def interval_arrival_rates(scenario: Scenario, start: float, end: float) -> dict
             for n, s in scenario.sources.items()}
 
 
-def interval_offered_work(scenario: Scenario, start: float, end: float) -> dict[str, float]:
-    """Pool -> fluid offered load (agents busy, every pool unlimited) at the mean arrival rates
-    of ``[start, end]`` (:func:`fluid.offered.pool_work`)."""
-    rates = interval_arrival_rates(scenario, start, end)
-    return pool_work(scenario, offered_rates(scenario, arrival_rates=rates)[1])
+class IntervalLoads:
+    """The fluid offered figures of any interval of one scenario: the offered inflows and work
+    are linear in the arrival rates (:mod:`fluid.offered`: the flow balance x = λ + Pᵀx), so
+    the response to one unit of rate of each source is computed once and each interval is a
+    weighted sum of those, at its sources' mean rates. A place whose jobs never end has an
+    unbounded inflow (inf) once any source that reaches it arrives; 0 × inf counts as 0."""
+
+    def __init__(self, scenario: Scenario):
+        self.scenario = scenario
+        names = list(scenario.sources)
+        self._inflow, self._work = {}, {}
+        for n in names:
+            unit = {m: float(m == n) for m in names}
+            inflow = offered_rates(scenario, arrival_rates=unit)[1]
+            self._inflow[n] = inflow
+            self._work[n] = pool_work(scenario, inflow)
+
+    @staticmethod
+    def _sum(rates: dict[str, float], unit: dict[str, dict[str, float]], keys) -> dict:
+        out = {}
+        for k in keys:
+            total = 0.0
+            for n, rate in rates.items():
+                value = unit[n][k]
+                if math.isnan(value):
+                    total = math.nan
+                    break
+                if rate != 0 and value != 0:
+                    total += rate * value
+            out[k] = total
+        return out
+
+    def inflow(self, start: float, end: float) -> dict[str, float]:
+        """Place -> offered inflow (jobs per time unit) at the mean rates of ``[start, end]``."""
+        rates = interval_arrival_rates(self.scenario, start, end)
+        return self._sum(rates, self._inflow, self.scenario.places)
+
+    def work(self, start: float, end: float) -> dict[str, float]:
+        """Pool -> fluid offered load (agents busy, every pool unlimited) at the mean arrival
+        rates of ``[start, end]`` (:func:`fluid.offered.pool_work`)."""
+        rates = interval_arrival_rates(self.scenario, start, end)
+        return self._sum(rates, self._work, self.scenario.pools)
 
 
 def _names(scenario: Scenario, metric: str) -> list[str]:
@@ -100,8 +137,9 @@ def day_table(scenario: Scenario, transient: pd.DataFrame) -> pd.DataFrame:
     cells = {(int(r.interval), r.metric, r.name): r for r in t.itertuples(index=False)}
     present = set(zip(t["metric"], t["name"]))
     has_fluid = "fluid" in t.columns
+    loads = IntervalLoads(scenario)
     for i, row in rows.items():
-        offered = interval_offered_work(scenario, row["start"], row["end"])
+        offered = loads.work(row["start"], row["end"])
         for r, pool in scenario.pools.items():
             row[f"scheduled.{r}"] = scheduled_staff(pool, row["start"], row["end"])
             row[f"offered.{r}"] = offered[r]

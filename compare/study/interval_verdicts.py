@@ -27,12 +27,11 @@ import math
 import pandas as pd
 
 from fluid.clock import clock_range
-from fluid.offered import offered_rates
 from fluid.scenario import Scenario
 from fluid.structure import serving_pools, waiting_places
 
 from ..formulas.staffing import erlang_a_min_servers, erlang_c_min_servers
-from .day_table import day_table, interval_arrival_rates
+from .day_table import IntervalLoads, day_table
 from .flags import STAFF_ADVICE, Flag
 
 __all__ = ["INTERVAL_KIND", "interval_flags", "missed_runs"]
@@ -75,11 +74,10 @@ def _single_pool(scenario: Scenario, place: str) -> tuple[str | None, str]:
     return pool, ""
 
 
-def _needed(scenario: Scenario, place: str, pool: str, row: dict, *, within=None, goal=None,
-            max_abandon=None) -> int | None:
+def _needed(scenario: Scenario, loads: IntervalLoads, place: str, pool: str, row: dict, *,
+            within=None, goal=None, max_abandon=None) -> int | None:
     """Agents Erlang C/A asks for in the interval of ``row`` (None when it cannot say)."""
-    rates = interval_arrival_rates(scenario, row["start"], row["end"])
-    lam = offered_rates(scenario, arrival_rates=rates)[1][place]
+    lam = loads.inflow(row["start"], row["end"])[place]
     work = row.get(f"offered.{pool}", math.nan)
     if not (lam > 0 and math.isfinite(lam) and work > 0 and math.isfinite(work)):
         return None
@@ -125,7 +123,8 @@ def _advice(scenario: Scenario, place: str | None, missed: list[dict], why: str,
     pool, why = _single_pool(scenario, place)
     if pool is None:
         return f"the extra agents cannot be estimated per interval ({why}); {STAFF_ADVICE}"
-    needs = [_needed(scenario, place, pool, row, **target) for row in missed]
+    loads = IntervalLoads(scenario)
+    needs = [_needed(scenario, loads, place, pool, row, **target) for row in missed]
     if all(n is None for n in needs):
         return (f"the extra agents cannot be estimated per interval (no offered load or no "
                 f"reachable Erlang target there); {STAFF_ADVICE}")
