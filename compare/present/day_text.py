@@ -48,9 +48,10 @@ def _columns(s: Scenario, day) -> list[tuple[str, str, bool]]:
     return [c for c in cols if c[1] in day.columns]
 
 
-def day_text(s: Scenario, day, reps: int) -> str:
+def day_text(s: Scenario, day, reps: int, report: bool = True) -> str:
     """The wide per-interval table ``day`` as text, with a title saying what each column is;
-    ``reps``: the run's replications (fewer are marked ``n=``)."""
+    ``reps``: the run's replications (fewer are marked ``n=``); ``report``: whether the title
+    points to the report's CSV (``compare --report``)."""
     cols = _columns(s, day)
     rows = []
     for row in day.to_dict("records"):
@@ -61,14 +62,18 @@ def day_text(s: Scenario, day, reps: int) -> str:
     title = (f"per interval ({_times(s)}): simulated figures are mean [95 % interval] over "
              f"{reps} replications, by the interval the jobs arrived in; staff: scheduled; "
              "offered: fluid offered load in agents at the interval's arrival rates; "
-             "occupancy: busy share of the agents on duty; SL: service level; "
-             "every figure with its fluid value in the report's per_interval_day.csv:")
+             "occupancy: busy share of the agents on duty; SL: service level"
+             + ("; every figure with its fluid value in the report's per_interval_day.csv:"
+                if report else ":"))
     return format_table(["interval", *(c[0] for c in cols)], rows, title=_wrap(title))
 
 
 def _times(s: Scenario) -> str:
+    """"clock times, time 0 = 08:00", or "times in min" without a clock."""
     label = axis_label(s)
-    return label if label.startswith("time (") else f"clock times, {label.split('(')[1][:-1]}"
+    if label.startswith("time ("):
+        return f"times in {s.time_unit}"
+    return f"clock times, {label.split('(')[1][:-1]}"
 
 
 def _wrap(text: str) -> str:

@@ -250,19 +250,19 @@ def simulation_text(s: Scenario, r) -> str:
                 title="per caller (shares of the callers who arrived in the window and ended "
                       "by its end, each counted once):"))
     if r.intervals is not None and len(r.intervals):
-        parts.append(_day_section(s, r.intervals, n))
+        parts.append(_day_section(s, r.intervals, n, report=False))
     if r.warnings:
         parts.append("\n".join(f"note: {w}" for w in r.warnings))
     return "\n\n".join(parts)
 
 
-def _day_section(s: Scenario, tidy, reps: int) -> str:
+def _day_section(s: Scenario, tidy, reps: int, report: bool = True) -> str:
     """The per-interval section: the wide table, one line per interval (see
     :mod:`compare.present.day_text`)."""
     from ..study.day_table import day_table
     from .day_text import day_text
 
-    return day_text(s, day_table(s, tidy), reps)
+    return day_text(s, day_table(s, tidy), reps, report)
 
 
 class _Row:

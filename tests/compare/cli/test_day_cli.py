@@ -45,7 +45,8 @@ def test_compare_prints_the_wide_table_and_the_interval_flag(capsys, tmp_path):
     assert day[0].startswith("interval,start,end,clock,scheduled.agents,offered.agents,arrivals")
     assert day[1].split(",")[3] == "08:00-08:30" and len(day) == 7
     assert (report / "per_interval.csv").exists()  # the tidy table, as before
-    assert "day" in (report / "report.html").read_text()
+    html = (report / "report.html").read_text()
+    assert 'id="fig-day"' in html and "per_interval_day (6 rows" in html
 
 
 def test_compare_json_has_the_day_table_and_the_flag(capsys):
