@@ -117,7 +117,7 @@ def _extras_text(scenario: Scenario, missed: list[dict], needs: list[int | None]
 
 
 def _advice(scenario: Scenario, place: str | None, missed: list[dict], why: str,
-            **target) -> str:
+            convention: str = "against", **target) -> str:
     if place is None:
         return f"the extra agents cannot be estimated per interval ({why}); {STAFF_ADVICE}"
     pool, why = _single_pool(scenario, place)
@@ -130,6 +130,10 @@ def _advice(scenario: Scenario, place: str | None, missed: list[dict], why: str,
                 f"reachable Erlang target there); {STAFF_ADVICE}")
     formula = ("Erlang A, patience taken as exponential with its mean"
                if scenario.places[place].patience is not None else "Erlang C")
+    if convention != "against" and scenario.places[place].patience is not None:
+        # (Erlang A's service level counts abandoners against: more agents than the target's
+        # own convention needs)
+        formula += ", abandoners counted against"
     return (f"agents to add to pool {pool} there ({formula}, at each interval's fluid offered "
             f"load, as if in steady state: a rough guide): "
             f"{_extras_text(scenario, missed, needs, pool)}; {STAFF_ADVICE}")
@@ -180,7 +184,8 @@ def interval_flags(scenario: Scenario, transient: pd.DataFrame | None) -> tuple[
             f"service level ({what}) at {place} lies wholly below the goal "
             f"{_pct(target.goal)} {_count(missed, judged, len(rows))}: "
             f"{', '.join(missed_runs(scenario, missed))} ({_worst(scenario, key, missed, True)}); "
-            + _advice(scenario, place, missed, "", within=target.within, goal=target.goal))))
+            + _advice(scenario, place, missed, "", getattr(target, "abandoned", "against"),
+                      within=target.within, goal=target.goal))))
     cap = scenario.targets.abandonment_max
     if cap is not None and "abandonment" in day.columns:
         missed, judged, rows = _judge(day, "abandonment", lambda r: r["abandonment.low"] > cap)
