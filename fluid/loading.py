@@ -19,6 +19,7 @@ import warnings
 from pathlib import Path
 from typing import Any, Iterable, Mapping
 
+from .clock import parse_start
 from .datafiles import SCENARIO_BYTES, DataFolder, NotARegularFile, open_regular
 from .distributions import parse_distribution
 from .errors import FieldError, ScenarioError, printable
@@ -306,7 +307,7 @@ def _build(doc: Mapping, file: str, base_dir: str | None, limits: Limits,
 
 
 def _build_run(spec: dict) -> RunSettings:
-    _known_keys(spec, ("horizon", "warmup", "replications", "seed"), "run")
+    _known_keys(spec, ("horizon", "warmup", "replications", "seed", "start"), "run")
     default = RunSettings()
     horizon = _real(spec.get("horizon", default.horizon), "run.horizon", strict=True)
     warmup = _real(spec.get("warmup", default.warmup), "run.warmup")
@@ -314,7 +315,9 @@ def _build_run(spec: dict) -> RunSettings:
         raise FieldError("run.warmup", f"must be below the horizon ({horizon:g})", warmup)
     reps = _whole(spec.get("replications", default.replications), "run.replications", low=1)
     seed = _whole(spec.get("seed", default.seed), "run.seed", high=LARGEST_SEED)
-    return RunSettings(horizon=horizon, warmup=warmup, replications=reps, seed=seed)
+    start = None if spec.get("start") is None else parse_start(spec["start"], "run.start")
+    return RunSettings(horizon=horizon, warmup=warmup, replications=reps, seed=seed,
+                       start=start)
 
 
 def _build_pool(name: str, spec: Any, horizon: float, limits: Limits) -> Pool:

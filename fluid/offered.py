@@ -29,10 +29,12 @@ from .structure import inflow, places_that_can_end, unlimited_share
 __all__ = ["fluid_loads", "offered_rates", "offered_work", "pool_loads", "pool_work"]
 
 
-def offered_rates(scenario: Scenario, horizon: float | None = None) -> tuple[dict, dict]:
+def offered_rates(scenario: Scenario, horizon: float | None = None,
+                  arrival_rates: Mapping[str, float] | None = None) -> tuple[dict, dict]:
     """Inflow-driven rates: ``(transition rates, job-place inflows)`` per time unit, as if every
     pool were unlimited. Sources with a profile or trace count at their mean rate over
-    ``horizon`` (default: the scenario's run horizon). A place whose jobs can never end (every
+    ``horizon`` (default: the scenario's run horizon), or at ``arrival_rates[source]`` when
+    given (e.g. one interval's rates). A place whose jobs can never end (every
     path from it leads back into a circuit of places) has an unbounded inflow, reported as
     ``inf``, as soon as any job reaches it."""
     h = scenario.run.horizon if horizon is None else horizon
@@ -44,8 +46,9 @@ def offered_rates(scenario: Scenario, horizon: float | None = None) -> tuple[dic
     idx = {p: i for i, p in enumerate(open_places)}
     n = len(open_places)
     lam = {p: 0.0 for p in places}
-    for src in scenario.sources.values():
-        lam[src.into] += src.arrivals.mean_rate(h)
+    for name, src in scenario.sources.items():
+        lam[src.into] += (src.arrivals.mean_rate(h) if arrival_rates is None
+                          else float(arrival_rates[name]))
     # x = λ + Pᵀx over the places whose jobs can end (P is then substochastic and I − Pᵀ regular)
     pt: dict[tuple[int, int], float] = {}
     for a, b, q, w in moves:

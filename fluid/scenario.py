@@ -80,12 +80,15 @@ class FrozenMap(Mapping):
 
 @dataclass(frozen=True)
 class RunSettings:
-    """Default simulation settings of a scenario (command-line flags override them)."""
+    """Default simulation settings of a scenario (command-line flags override them).
+    ``start``: the clock time of time 0 in minutes after midnight (``run.start: "08:00"`` gives
+    480.0), or None; only labels read it (:func:`fluid.clock.clock_label`)."""
 
     horizon: float = 600.0
     warmup: float = 0.0
     replications: int = 10
     seed: int = 0
+    start: float | None = None
 
 
 @dataclass(frozen=True)

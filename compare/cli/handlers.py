@@ -61,6 +61,10 @@ def fluid(args) -> Outcome:
     result = throughput(s, method=args.method, dt=args.dt, cross_check=args.cross_check)
     doc, notes = result.to_dict(), rate_uncertainty_notes(s.sources)
     doc["rate_uncertainty"] = rate_uncertainty(s.sources)
+    if any(p.schedule is not None for p in s.pools.values()):
+        from ..present.day_text import schedule_rows
+
+        doc["schedule_per_interval"] = schedule_rows(s)  # (the staff above is its mean)
     text = render.fluid_text(s, result) + "".join(f"\nnote: {n}" for n in notes)
     return finish(args, text, doc)
 

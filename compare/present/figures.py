@@ -14,13 +14,13 @@ grey. Times are in the scenario's ``time_unit``, passed in as a label.
 from __future__ import annotations
 
 import math
-from typing import Any, Mapping
+from typing import Any, Callable, Mapping
 
 import matplotlib as mpl
 import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
-from matplotlib.ticker import NullFormatter
+from matplotlib.ticker import FuncFormatter, NullFormatter
 
 from ..study.gap import gap_text
 
@@ -273,12 +273,17 @@ def _steps(start: np.ndarray, end: np.ndarray, values: np.ndarray):
 
 def transient_figure(table: pd.DataFrame, time_unit: str, *,
                      title: str = "Interval by interval: fluid model against simulation",
-                     warmup: float | None = None, ncols: int = 2) -> Figure:
+                     warmup: float | None = None, ncols: int = 2,
+                     goals: Mapping[str, float] | None = None,
+                     clock: Callable[[float], str] | None = None,
+                     xlabel: str | None = None) -> Figure:
     """One panel per (metric, name) of a tidy table with columns interval, start, end, metric,
     name, fluid, mean, low, high, n (start and end in ``time_unit``): the fluid value of each
     interval as a solid orange step line, the simulated mean as a dashed blue step line inside
     its shaded 95 % band. A fluid column that is missing or nan for a panel is simply not drawn.
-    Panel titles read "metric: name" (just the metric for whole-system rows, name "")."""
+    Panel titles read "metric: name" (just the metric for whole-system rows, name "").
+    ``goals``: place -> service-level goal, drawn as a horizontal line on its service-level
+    panel; ``clock``: time -> tick label (e.g. clock times), with ``xlabel`` the axis label."""
     required = {"start", "end", "metric", "name", "mean", "low", "high"}
     missing = required - set(table.columns)
     if missing:
@@ -312,8 +317,13 @@ def transient_figure(table: pd.DataFrame, time_unit: str, *,
             if "fluid" in g and np.isfinite(g["fluid"].to_numpy(float)).any():
                 _, fl = _steps(start, end, g["fluid"].to_numpy(float))
                 ax.step(x, fl, where="post", color=FLUID, lw=1.8, label="fluid")
+            goal = (goals or {}).get(name) if metric == "service_level" else None
+            if goal is not None:
+                ax.axhline(goal, color=TARGET, ls=":", lw=1.4, label="goal")
             ax.set_title(f"{metric}: {name}" if name else metric)
-            ax.set_xlabel(f"time ({time_unit})")
+            ax.set_xlabel(xlabel or f"time ({time_unit})")
+            if clock is not None:
+                ax.xaxis.set_major_formatter(FuncFormatter(lambda t, _pos: clock(t)))
             ax.set_ylabel(_metric_label(metric, time_unit))
             ax.set_xlim(x[0], x[-1])
         handles, labels = axes[0].get_legend_handles_labels()

@@ -9,6 +9,10 @@ import math
 from typing import Any
 
 from ..study.gap import GAP_CONVENTION
+from fluid.clock import axis_label, clock_label
+
+from ..study.day_table import day_table
+from .day_figure import day_figure
 from .figures import pooled_waits, rates_figure, scale_figure, transient_figure, waits_figure
 from .html import ReportFiles, write_report
 
@@ -44,9 +48,14 @@ def comparison_report(directory, comparison, scenario, *, caution: str,
         "totals": comparison.gaps.totals,
     }
     if comparison.transient is not None and len(comparison.transient):
-        figures["transient"] = transient_figure(comparison.transient, scenario.time_unit,
-                                                warmup=comparison.settings.warmup or None)
-        tables["per_interval"] = comparison.transient
+        day = day_table(scenario, comparison.transient)
+        figures["day"] = day_figure(scenario, day)
+        goals = {p: t.goal for p, t in scenario.targets.service.items()}
+        figures["transient"] = transient_figure(
+            comparison.transient, scenario.time_unit, warmup=comparison.settings.warmup or None,
+            goals=goals, clock=lambda t: clock_label(scenario, t), xlabel=axis_label(scenario))
+        tables["per_interval_day"] = day  # one row per interval (compare.study.day_table)
+        tables["per_interval"] = comparison.transient  # the tidy table, as before
     return write_report(directory, title=f"fluidgap compare: {scenario.name}",
                         summary_lines=[*summary, GAP_CONVENTION], tables=tables,
                         figures=figures, json_doc=comparison.to_json(), caution=caution)

@@ -186,6 +186,10 @@ def fluid_text(s: Scenario, r) -> str:
               fmt(fp.wait_served)] for p, fp in places.items()],
             title="waiting places (fluid; steady state, or means over the window "
                   "for a time-varying scenario):"))
+    if any(p.schedule is not None for p in s.pools.values()):
+        from .day_text import schedule_text
+
+        parts.append(schedule_text(s))
     parts.append("The fluid model has no randomness: run `fluidgap simulate` or `fluidgap compare` "
                  "for the simulated waiting, abandonment and service level with intervals.")
     return "\n\n".join(parts)
@@ -246,15 +250,20 @@ def simulation_text(s: Scenario, r) -> str:
                  for name, v in r.sources.items()],
                 title="per caller (shares of the callers who arrived in the window and ended "
                       "by its end, each counted once):"))
-    if r.intervals is not None:
-        rows = [[f"{fmt(row.start)}-{fmt(row.end)}", row.metric, row.name,
-                 _est(_Row(row.mean, row.low, row.high, int(row.n)), n)]
-                for row in r.intervals.itertuples(index=False)]
-        parts.append(format_table(["interval", "metric", "where", "mean [95 % interval]"], rows,
-                                  title=f"per interval ({unit}):"))
+    if r.intervals is not None and len(r.intervals):
+        parts.append(_day_section(s, r.intervals, n, report=False))
     if r.warnings:
         parts.append("\n".join(f"note: {w}" for w in r.warnings))
     return "\n\n".join(parts)
+
+
+def _day_section(s: Scenario, tidy, reps: int, report: bool = True) -> str:
+    """The per-interval section: the wide table, one line per interval (see
+    :mod:`compare.present.day_text`)."""
+    from ..study.day_table import day_table
+    from .day_text import day_text
+
+    return day_text(s, day_table(s, tidy), reps, report)
 
 
 class _Row:
@@ -274,6 +283,7 @@ FLAG_TITLES = {
     "target_missed": "target missed",
     "unstable": "unstable",
     "rate_uncertainty": "rate uncertainty",
+    "interval_target": "target missed in intervals",
 }
 
 
@@ -371,13 +381,14 @@ def comparison_text(s: Scenario, c) -> str:
              for r, row in zip(_gap_rows(c.gaps.pools, "pool"),
                                c.gaps.pools.to_dict("records"))]))
     if c.transient is not None and len(c.transient):
-        rows = [[f"{fmt(r['start'])}-{fmt(r['end'])}", r["metric"], r["name"] or "",
-                 fmt(r["fluid"]), fmt_estimate(_Row(r["mean"], r["low"], r["high"], int(r["n"])))]
-                for r in c.transient.to_dict("records")]
-        parts.append(format_table(["interval", "metric", "where", "fluid",
-                                   "simulated [95 % interval]"], rows,
-                                  title=f"per interval ({unit}):"))
+        parts.append(_day_section(s, c.transient, c.simulation.replications))
     notes = list(c.notes)  # (they carry the simulation's warnings too)
+    scheduled = [r for r, p in s.pools.items() if p.schedule is not None]
+    if scheduled and len(c.gaps.pools):
+        notes.append(f"the pool table's staff and fluid load replace the schedule of "
+                     f"{', '.join(scheduled)} by its mean over the horizon; the simulation and "
+                     "the fluid trajectory follow the schedule"
+                     + (" (per interval above)" if c.transient is not None else ""))
     if notes:
         parts.append("\n".join(f"note: {n}" for n in notes))
     return "\n\n".join(parts)

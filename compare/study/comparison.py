@@ -20,6 +20,7 @@ from fluid.analysis import FluidResult, throughput
 from fluid.json_values import json_ready
 from fluid.scenario import Scenario
 
+from .day_table import day_table
 from .flags import Flag, find_flags
 from .gap import GAP_CONVENTION
 from .gaps import Gaps, gap_tables
@@ -72,7 +73,9 @@ class Comparison:
         sign convention of every gap, :data:`compare.study.gap.GAP_CONVENTION`), and
         ``"verdicts"`` (False: fewer than two replications, flags not judged), ``"rate_uncertainty"``
         (the day factors and the targets judged without them, see
-        :meth:`compare.study.rate_flags.RateCheck.to_json`); nan and inf become null."""
+        :meth:`compare.study.rate_flags.RateCheck.to_json`) and ``"per_interval_day"`` (the wide
+        per-interval table of :mod:`compare.study.day_table`, one record per interval, or
+        null); nan and inf become null."""
         transient = None
         if self.transient is not None:
             transient = json_ready(self.transient.to_dict("records"))
@@ -90,6 +93,10 @@ class Comparison:
             "notes": list(self.notes),
             "verdicts": self.verdicts,
             "rate_uncertainty": json_ready(self.rate.to_json()),
+            # one row per interval (compare.study.day_table), when there is a per-interval table
+            "per_interval_day": (None if self.transient is None or self.scenario is None else
+                                 json_ready(day_table(self.scenario, self.transient)
+                                            .to_dict("records"))),
         }
 
 
@@ -122,19 +129,19 @@ def compare(scenario: Scenario, settings: SimulationSettings | None = None, *,
     sim = replicate(scenario, settings=settings, progress=progress, record_waits=record_waits,
                     percentiles=percentiles)
     gaps = gap_tables(scenario, fluid, sim)
+    transient = None
+    if sim.intervals is not None:
+        transient = transient_table(scenario, sim.intervals, fluid.counters, settings.horizon)
     # (with one replication every interval is empty, so no flag could fire: "no flags" would
     # read as a verdict; none is given instead)
     verdicts = sim.replications >= MIN_REPLICATIONS_FOR_VERDICTS
-    flags = find_flags(scenario, fluid, sim, gaps) if verdicts else ()
+    flags = find_flags(scenario, fluid, sim, gaps, transient) if verdicts else ()
     # (a second run without the day factors, only when a source has one)
     rate = rate_check(scenario, sim, settings, judge=verdicts, progress=progress,
                       percentiles=percentiles)
     flags += rate.flags
     if not verdicts:
         notes.append(no_verdict(sim.replications))
-    transient = None
-    if sim.intervals is not None:
-        transient = transient_table(scenario, sim.intervals, fluid.counters, settings.horizon)
     notes.append(f"fluid model compared with: {fluid.model}")
     if scenario.has_time_variation:
         notes.append("time-varying scenario: fluid figures are means over the window "

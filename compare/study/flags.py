@@ -29,6 +29,11 @@ The kinds and when they fire (times in the scenario's time unit; "interval" is t
   simulated total queue keeps growing over the window: the per-replication least-squares slopes
   have an interval above 0 and the mean growth over the window exceeds both one job and half the
   mean queue (:data:`TREND_SHARE`) — a drift, not noise.
+* ``interval_target`` (a target's place, or ``abandonment``): a target judged interval by
+  interval on the per-interval table (time-varying scenarios, or ``--interval``): the intervals
+  whose service level interval lies wholly below its goal, or whose abandonment interval lies
+  wholly above the maximum, one flag per target with the intervals' clock times and the agents
+  to add there (:mod:`compare.study.interval_verdicts`).
 
 Flags follow the scenario's declaration order within a kind.
 """
@@ -61,7 +66,7 @@ __all__ = [
 ]
 
 FLAG_KINDS = ("throughput_optimistic", "hidden_congestion", "abandonment_underestimated",
-              "near_critical", "target_missed", "unstable")
+              "near_critical", "target_missed", "unstable", "interval_target")
 THROUGHPUT_TOLERANCE = 0.01
 ABANDONMENT_TOLERANCE = 0.01
 DOWNSTREAM_SHARE = 0.10
@@ -223,8 +228,9 @@ def queue_trend(sim: SimulationResult) -> tuple[Estimate, float, float]:
 
 
 def find_flags(scenario: Scenario, fluid: FluidResult, sim: SimulationResult,
-               gaps: Gaps) -> tuple[Flag, ...]:
-    """All flags of one comparison, in the order of :data:`FLAG_KINDS`."""
+               gaps: Gaps, transient=None) -> tuple[Flag, ...]:
+    """All flags of one comparison, in the order of :data:`FLAG_KINDS`; ``transient``: the
+    comparison's tidy per-interval table, for the per-interval verdicts (None: none)."""
     unit = scenario.time_unit
     flags: list[Flag] = []
 
@@ -307,6 +313,10 @@ def find_flags(scenario: Scenario, fluid: FluidResult, sim: SimulationResult,
                 + _advice(pool, fluid, sim))))
 
     flags += _unstable(scenario, fluid, sim, places)
+    # (imported here: that module builds its flags with this one's Flag)
+    from .interval_verdicts import interval_flags
+
+    flags += interval_flags(scenario, transient)
     return tuple(flags)
 
 

@@ -113,6 +113,7 @@ CASES = [
     case("400-digit horizon", "simulate huge-int-horizon.yaml", "run.horizon"),
     case("5000-digit hold", "inspect giant-int-hold.yaml", "places.talk.hold", "5000 digits"),
     case("400-digit seed", "simulate huge-int-seed.yaml", "run.seed"),
+    case("run.start 25:000...", "compare run-start-bad.yaml", "run.start", "HH:MM"),
     case("400-digit arc weight", "fluid huge-int-weight.yaml", "transitions.answer.in.agents"),
     case("a trillion replications", "simulate huge-replications.yaml", "run.replications"),
     case("gamma cv 1e-200", "simulate gamma-cv-tiny.yaml", "places.talk.hold.cv", "at least 1e-06"),
@@ -272,6 +273,7 @@ DEFAULT = {
     "patience 1e-300 loop", "name with a trailing newline", "--set a typo of a pool",
     "--set abc on a scheduled pool", "--horizon inf", "--horizon 1e12", "--interval 1e-6",
     "--reps 100000000", "--dt 1e-9", "--method lp with priorities", "--factors inf",
+    "run.start 25:000...",
 }
 
 
