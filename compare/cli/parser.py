@@ -7,6 +7,7 @@ import argparse
 from fluid.scenario import Limits
 
 from . import handlers
+from .fit_handler import add_fit_parser
 from .flag_values import at_least_one, finite, positive_limit, whole
 
 __all__ = ["UsageError", "build_parser"]
@@ -186,4 +187,6 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--report", metavar="DIR", help="write report.html, CSV tables and JSON into DIR")
     _simulation_options(p)
     p.set_defaults(handler=handlers.staff)
+
+    add_fit_parser(sub, _input_limits)
     return parser
