@@ -68,8 +68,9 @@ def survival_figure(curve, fit, time_unit: str,
     t = np.concatenate(([0.0], curve.times))
     s = np.concatenate(([1.0], curve.survival))
     ax.step(t, s, where="post", color=OKABE_ITO[5], label="Kaplan-Meier")
-    lo = np.concatenate(([1.0], np.nan_to_num(curve.low, nan=0.0)))
-    hi = np.concatenate(([1.0], np.nan_to_num(curve.high, nan=1.0)))
+    # (no band where the interval is undefined: before the first event and where S = 0)
+    lo = np.concatenate(([1.0], np.where(np.isnan(curve.low), curve.survival, curve.low)))
+    hi = np.concatenate(([1.0], np.where(np.isnan(curve.high), curve.survival, curve.high)))
     ax.fill_between(t, lo, hi, step="post", color=OKABE_ITO[2], alpha=0.3,
                     label=f"{int(curve.level * 100)} % interval (Greenwood, log-log)")
     if fit is not None:

@@ -148,21 +148,20 @@ def time_column(table: Table, name: str, flag: str, time_unit: str, *, required:
         raise ScenarioError(table.file, f"line {line}, column {name}", "is empty, expected a "
                             "time")
     numbers = pd.to_numeric(series.where(~empty), errors="coerce")
-    bad = numbers.isna() & ~empty
-    if not bad.any():
-        is_stamped = False
-    else:
-        is_stamped = True
-    if stamped is not None and is_stamped != stamped and (~empty).any():
-        raise ScenarioError(table.file, f"column {name}", "holds " + (
-            "timestamps" if is_stamped else "numbers") + " while the arrival column holds " +
+    filled = ~empty.to_numpy()
+    # the kind of time is the first filled cell's: a later cell of the other kind is an error
+    first = int(np.argmax(filled)) if filled.any() else -1
+    is_stamped = bool(first >= 0 and np.isnan(numbers.iloc[first]))
+    if stamped is not None and filled.any() and is_stamped != stamped:
+        raise ScenarioError(table.file, f"line {table.lines[first]}, column {name}", "holds " + (
+            "a timestamp" if is_stamped else "a number") + " while the arrival column holds " +
             ("timestamps" if stamped else "numbers") + ": use one kind of time")
     if not is_stamped:
         values = numbers.to_numpy(dtype=float)
-        if not np.all(np.isfinite(values[~empty.to_numpy()])):
-            line = table.lines[int(np.argmax(~np.isfinite(values) & ~empty.to_numpy()))]
-            raise ScenarioError(table.file, f"line {line}, column {name}",
-                                "is not a finite number")
+        bad = ~np.isfinite(values) & filled
+        if bad.any():
+            raise ScenarioError(table.file, f"line {table.lines[int(np.argmax(bad))]}, column "
+                                f"{name}", "is not a finite number (the column holds numbers)")
         return TimeColumn(values=values, day=np.zeros(len(cells), dtype=np.int64),
                           stamped=False)
     unit = SECONDS_PER_UNIT.get(time_unit)
@@ -170,7 +169,11 @@ def time_column(table: Table, name: str, flag: str, time_unit: str, *, required:
         raise ScenarioError(table.file, f"column {name}", "holds timestamps, which convert "
                             "to the time units " + ", ".join(SECONDS_PER_UNIT) +
                             f" only (--time-unit is {time_unit})")
-    stamps = pd.to_datetime(series.where(~empty), format="ISO8601", errors="coerce")
+    try:
+        stamps = pd.to_datetime(series.where(~empty), format="ISO8601", errors="coerce")
+    except (ValueError, TypeError, OverflowError):  # pandas refuses mixed time zones
+        raise ScenarioError(table.file, f"column {name}", "mixes time zones or kinds of "
+                            "timestamp: write every time in one time zone") from None
     if getattr(stamps.dt, "tz", None) is not None:
         stamps = stamps.dt.tz_localize(None)  # the wall-clock time written
     bad = stamps.isna().to_numpy() & ~empty.to_numpy()

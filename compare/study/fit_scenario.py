@@ -74,8 +74,11 @@ def family_notes(choice, what: str, basis: str) -> list[str]:
     gof = (f"Kolmogorov-Smirnov {best.statistic:.3g} (p {best.p_value:.3g}, optimistic: "
            "fitted on the same data)" if best.p_value is not None
            else f"largest gap to the Kaplan-Meier curve {best.statistic:.3g}")
+    close = [f.family for f in ranked if f is not best and f.aic - best.aic < 2]
+    caveat = ([f"  within 2 of its AIC: {', '.join(close)}; the data hardly tell them apart "
+               "(longer records would)"] if close else [])
     return [f"{what}: {best.family}, chosen by AIC among the format's families (AIC "
-            f"difference to it: {others or 'none fitted'})",
+            f"difference to it: {others or 'none fitted'})", *caveat,
             f"  maximum likelihood on {basis}",
             f"  {_intervals_text(best)} ({int(best.level * 100)} %, Wald on the log scale from "
             f"the observed information); {gof}"]

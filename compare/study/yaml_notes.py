@@ -39,7 +39,7 @@ def scalar(value: Any) -> str:
 
 
 def _key(key: Any) -> str:
-    return scalar(key) if not isinstance(key, str) or not _PLAIN.match(key) else key
+    return scalar(key)  # (quoted when it would read as something else: yes, null, 1e3, ...)
 
 
 def _is_scalar(v: Any) -> bool:
