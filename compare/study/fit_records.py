@@ -172,6 +172,8 @@ class ArrivalProfile:
                 "high": list(map(float, self.high))}
 
 
+#: Points of the Kaplan-Meier curve the JSON document holds at most.
+JSON_CURVE_POINTS = 2000
 #: Most intervals a profile may have (the scenario's limit on intervals, Limits.intervals).
 MAX_INTERVALS = 10_000
 
@@ -233,9 +235,15 @@ class RecordsFit:
     def to_json(self) -> dict:
         curve = None
         if self.curve is not None:
-            curve = {"times": list(map(float, self.curve.times)),
-                     "survival": list(map(float, self.curve.survival)),
-                     "events": self.curve.events, "censored": self.curve.censored}
+            c = self.curve
+            # at most JSON_CURVE_POINTS steps (evenly picked, the last kept), so that a
+            # million records do not make a JSON document of a million times
+            pick = np.unique(np.linspace(0, c.times.size - 1,
+                                         min(c.times.size, JSON_CURVE_POINTS)).round()
+                             .astype(int))
+            curve = {"times": list(map(float, c.times[pick])),
+                     "survival": list(map(float, c.survival[pick])),
+                     "steps": int(c.times.size), "events": c.events, "censored": c.censored}
         return {"file": self.file, "time_unit": self.time_unit, "calls": self.calls,
                 "served": self.served, "abandoned": self.abandoned,
                 "unresolved": self.unresolved, "most_in_talk": self.most_in_talk,
