@@ -44,7 +44,7 @@ def families_table(choice):
 
 def _profile_lines(fit) -> str:
     p = fit.profile
-    from ..study.fit_scenario import clock
+    from ..study.fit_input import clock
 
     rows = [[f"{clock(p.start + i * p.step, fit.time_unit, fit.stamped)}", int(n), r, lo, hi]
             for i, (n, r, lo, hi) in enumerate(zip(p.counts, p.rates, p.low, p.high))]

@@ -27,7 +27,7 @@ import numpy as np
 from fluid.errors import ScenarioError
 
 from ..formulas.counts import DayFactor, dispersion_index, gamma_day_factor, garwood_interval
-from .fit_input import SECONDS_PER_UNIT, Table, count_column, read_table, time_column
+from .fit_input import SECONDS_PER_UNIT, Table, clock, count_column, read_table, time_column
 
 __all__ = ["CountColumns", "DailyCounts", "CountsFit", "read_counts", "fit_counts"]
 
@@ -110,9 +110,10 @@ def _long(table: Table, columns: CountColumns, time_unit: str) -> DailyCounts:
                             "every interval)")
     if columns.timestamp is not None:
         starts = np.asarray(int_labels, dtype=float)
+    labels = ([clock(float(i), time_unit, True) for i in int_labels] if starts is not None
+              else [_label(i) for i in int_labels])
     return DailyCounts(file=table.file, counts=matrix, days=[_label(d) for d in day_labels],
-                       intervals=[_label(i) for i in int_labels], starts=starts,
-                       layout="long")
+                       intervals=labels, starts=starts, layout="long")
 
 
 def _label(value) -> str:

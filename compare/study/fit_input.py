@@ -24,7 +24,7 @@ from fluid.datafiles import LINE_BYTES, NotARegularFile, open_regular
 from fluid.errors import ScenarioError
 
 __all__ = ["Table", "read_table", "TimeColumn", "time_column", "SECONDS_PER_UNIT",
-           "count_column"]
+           "count_column", "clock"]
 
 #: Seconds in one scenario time unit, for the units a timestamp can be converted to.
 SECONDS_PER_UNIT = {"s": 1.0, "sec": 1.0, "min": 60.0, "h": 3600.0, "hour": 3600.0}
@@ -201,3 +201,14 @@ def count_column(table: Table, name: str, flag: str | None = None) -> np.ndarray
                                 "is not a whole number >= 0")
         out[i] = v
     return out
+
+
+def clock(t: float, time_unit: str, stamped: bool) -> str:
+    """A time of day for labels: ``HH:MM`` (``HH:MM:SS`` when not on a whole minute) for
+    timestamps (``t`` in ``time_unit`` from midnight), else the number as written."""
+    if not stamped:
+        return f"{t:g}"
+    seconds = round(t * SECONDS_PER_UNIT[time_unit])
+    h, rest = divmod(seconds, 3600)
+    m, sec = divmod(rest, 60)
+    return f"{h:02d}:{m:02d}" + (f":{sec:02d}" if sec else "")

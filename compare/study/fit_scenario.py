@@ -20,6 +20,7 @@ from dataclasses import dataclass
 
 from fluid.errors import ScenarioError
 
+from .fit_input import clock
 from .yaml_notes import to_yaml
 
 __all__ = ["FittedScenario", "records_scenario", "counts_scenario", "fill_scenario",
@@ -41,18 +42,6 @@ class FittedScenario:
 def _r(x: float) -> float:
     """Six significant digits: what the scenario keeps of a fitted value."""
     return float(f"{x:.6g}")
-
-
-def clock(t: float, time_unit: str, stamped: bool) -> str:
-    """A time of day: ``HH:MM`` for timestamps (``t`` from midnight), else the number."""
-    from .fit_input import SECONDS_PER_UNIT
-
-    if not stamped:
-        return f"{t:g}"
-    minutes = t * SECONDS_PER_UNIT[time_unit] / 60
-    h, m = divmod(round(minutes * 60) / 60, 60)
-    return f"{int(h):02d}:{m:05.2f}".rstrip("0").rstrip(".") if m % 1 else \
-        f"{int(h):02d}:{int(m):02d}"
 
 
 def _intervals_text(fit) -> str:

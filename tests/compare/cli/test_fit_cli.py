@@ -181,3 +181,22 @@ def test_hostile_files_end_fast_with_one_line(capsys, tmp_path):
     assert code == 2 and "UTF-8" in err
     code, out, err = run(capsys, "fit", records, "--step", "1e-9")
     assert code == 2 and "--max-intervals" in err
+
+
+def test_counts_long_layout_with_timestamps(capsys, tmp_path):
+    # invented 15-minute counts of two days; the step is the spacing of the timestamps
+    rows = ["start,calls"]
+    for day, counts in (("2026-03-02", (3, 5, 7)), ("2026-03-03", (5, 9, 5))):
+        for i, n in enumerate(counts):
+            rows.append(f"{day}T08:{15 * i:02d}:00,{n}")
+    counts = _write(tmp_path, "\n".join(rows) + "\n", "stamped.csv")
+    code, out, err = run(capsys, "fit", counts, "--counts", "--count", "calls", "--timestamp",
+                         "start", "--json")
+    assert code == 0, err
+    doc = json.loads(out)["counts"]
+    assert doc["step"] == 15.0 and doc["start"] == 480.0 and doc["days"] == 2
+    assert doc["intervals"] == ["08:00", "08:15", "08:30"]
+    assert doc["mean_counts"] == pytest.approx([4, 7, 6])
+    assert doc["rates"] == pytest.approx([4 / 15, 7 / 15, 6 / 15])
+    # daily totals 15 and 19: mean 17, sample variance 8 (by hand)
+    assert doc["total_dispersion"] == pytest.approx(8 / 17)
