@@ -117,18 +117,14 @@ def read_table(path, max_rows: int) -> Table:
 @dataclass(frozen=True)
 class TimeColumn:
     """One column of times: ``values`` in the scenario's time unit (nan where the cell is
-    empty), measured from midnight of ``day`` for timestamps and as written for numbers;
+    empty), on one axis across days for timestamps (from 1970-01-01) and as written for
+    numbers;
     ``day`` the day index of each row (0 for numbers; for timestamps the calendar date as
     days since 1970-01-01), ``stamped`` whether the cells were timestamps."""
 
     values: np.ndarray
     day: np.ndarray
     stamped: bool
-
-    @property
-    def absolute(self) -> np.ndarray:
-        """Times on one axis across days (scenario time unit)."""
-        return self.values
 
 
 def time_column(table: Table, name: str, flag: str, time_unit: str, *, required: bool,
