@@ -8,6 +8,7 @@ from fluid.scenario import Limits
 
 from . import handlers
 from .exports import add_export_flags
+from .fit_handler import add_fit_parser
 from .flag_values import at_least_one, finite, positive_limit, whole
 
 __all__ = ["UsageError", "build_parser"]
@@ -204,4 +205,6 @@ def build_parser() -> argparse.ArgumentParser:
     _staff_day_options(p)
     _simulation_options(p)
     p.set_defaults(handler=handlers.staff)
+
+    add_fit_parser(sub, _input_limits)
     return parser
