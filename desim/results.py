@@ -48,7 +48,8 @@ BOUNDS = {
                 "abandoned_share": SHARE, "total_wait": NON_NEGATIVE, "lost": NON_NEGATIVE,
                 "callers_served": SHARE, "callers_abandoned": SHARE, "callers_lost": SHARE},
     "interval": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
-                 "service_level": SHARE, "queue": NON_NEGATIVE},
+                 "service_level": SHARE, "abandonment": SHARE, "wait": NON_NEGATIVE,
+                 "queue": NON_NEGATIVE, "busy": SHARE, "staff": NON_NEGATIVE},
 }
 
 _CALLER_METRICS = frozenset(CALLER_OUTCOMES.values())
