@@ -13,7 +13,8 @@ the simulation's per-interval table (``desim.replicate(..., interval=STEP)``), m
 * ``queue`` (per waiting place): time average over the interval of the fluid jobs available and
   not yet taken (trapezoid rule on the grid, whose counters are piecewise linear);
 * ``service_level`` (per place with a target): share of the fluid that becomes available in the
-  interval and is taken within the target's ``within``, abandoners counted against: by cohorts
+  interval and is taken within the target's ``within``, abandoners counted by the target's
+  convention (as the simulation counts them, by arrival interval): by cohorts
   of the age-structured queue at an impatient place (:func:`fluid.places.cohort_service_level`),
   else :func:`fluid.service_level.fifo_service_level`. Jobs leave a place first-in first-out,
   so a fluid particle that becomes available when the availability curve A(t) reaches level v
@@ -89,9 +90,10 @@ def fluid_interval_value(scenario: Scenario, sol: CounterSolution, metric: str, 
     if metric == "queue" and name in sol.waiting:
         return queue_average(sol, name, start, end)
     if metric == "service_level" and name in scenario.targets.service:
-        within = scenario.targets.service[name].within
+        target = scenario.targets.service[name]
+        within = target.within
         if name in sol.head_wait:
-            return cohort_service_level(scenario, sol, name, within, start, end)
+            return cohort_service_level(scenario, sol, name, within, start, end, target)
         return fifo_service_level(scenario, sol, name, within, start, end)
     return math.nan
 

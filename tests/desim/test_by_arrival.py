@@ -173,3 +173,20 @@ def test_replicated_table_has_every_contract_metric_within_bounds(net):
     assert (shares["low"] >= 0).all() and (shares["high"] <= 1).all()
     assert (r.intervals["low"].dropna() >= 0).all()
     assert (r.intervals["n"] == 4).all()
+
+
+@pytest.mark.parametrize("convention,first,window", [
+    # interval 0 (jobs 0..3): taken within 1: jobs 0 and 3; taken: 0, 1, 3; job 2 abandoned
+    # after waiting 5. Window (all 6 jobs left the queue; 5 taken, 4 within): against 4/6.
+    ("against", 2 / 4, 4 / 6),
+    ("excluded", 2 / 3, 4 / 5),  # job 2 out of both sides
+    ("{excluded_within: 6}", 2 / 3, 4 / 5),  # it waited 5 <= 6: out
+    ("{excluded_within: 4}", 2 / 4, 4 / 6),  # it waited 5 > 4: counted against
+])
+def test_conventions_by_hand(net, convention, first, window):
+    text = IMPATIENT.replace("goal: 0.8}", f"goal: 0.8, abandoned: {convention}}}")
+    r = run_replication(net(text, calls=ARRIVALS), 0, interval=10)
+    t = _table(r)
+    assert t[(0, "service_level", "queue")] == pytest.approx(first, abs=1e-15)
+    assert t[(1, "service_level", "queue")] == 1.0
+    assert r.places["queue"]["served_within"] == pytest.approx(window, abs=1e-15)
