@@ -115,6 +115,9 @@ class SimulationResult:
     warnings: list
     unstable: tuple
     runs: tuple = field(repr=False)
+    #: the scenario's service targets as JSON, ``{place: {"within", "goal", "abandoned",
+    #: "excluded_within", "describes"}}`` (what each ``served_within`` measures)
+    targets: dict = field(default_factory=dict)
 
     @property
     def unstable_replications(self) -> int:
@@ -217,6 +220,7 @@ class SimulationResult:
             "seed": self.seed,
             "transitions": table(self.transitions),
             "places": pinned_places(),
+            "targets": self.targets,
             "wait_distribution": self.wait_distribution_json(),
             "pools": table(self.pools),
             "sources": self._sources_json(),
@@ -286,9 +290,10 @@ def _warmup_suggestion(runs: list[RunResult], steady_state: bool) -> WarmupSugge
 
 
 def summarize(runs: list[RunResult], *, scenario_name: str, time_unit: str,
-              steady_state: bool = True) -> SimulationResult:
+              steady_state: bool = True, targets: dict | None = None) -> SimulationResult:
     """Combine per-replication results (in replication order) into a :class:`SimulationResult`.
-    ``steady_state``: the scenario has constant rates and staff, so MSER-5 warnings apply."""
+    ``steady_state``: the scenario has constant rates and staff, so MSER-5 warnings apply.
+    ``targets``: the service targets as JSON (:attr:`SimulationResult.targets`)."""
     first = runs[0]
     suggestion = _warmup_suggestion(runs, steady_state)
     warnings: list[str] = []
@@ -317,4 +322,5 @@ def summarize(runs: list[RunResult], *, scenario_name: str, time_unit: str,
         sources=_estimates(runs, "sources", SOURCE_METRICS),
         intervals=_interval_estimates(runs),
         warmup_suggestion=suggestion, warnings=warnings, unstable=unstable, runs=tuple(runs),
+        targets=dict(targets or {}),
     )

@@ -25,6 +25,7 @@ scenario's time unit, rates per that unit.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -64,6 +65,7 @@ class FluidPlace:
     queue: float
     served_within: float | None = None
     within: float | None = None
+    convention: str | None = None  # what served_within measures (ServiceTarget.describe)
 
     @property
     def no_wait(self) -> bool:
@@ -75,7 +77,8 @@ class FluidPlace:
         return {"state": self.state, "inflow": _num(self.inflow), "capacity": _num(self.capacity),
                 "wait": _num(self.wait), "wait_served": _num(self.wait_served),
                 "abandoned": _num(self.abandoned), "queue": _num(self.queue),
-                "served_within": _num(self.served_within), "within": _num(self.within)}
+                "served_within": _num(self.served_within), "within": _num(self.within),
+                "convention": self.convention}
 
 
 # --- Whitt (2006), one place -----------------------------------------------------------------------
@@ -125,9 +128,21 @@ def _late_share(target, patience_cdf, waited: float) -> float:
     return max(0.0, patience_cdf(waited) - patience_cdf(float(target.excluded_within)))
 
 
+def _described(scenario: Scenario, fp: FluidPlace) -> FluidPlace:
+    """``fp`` with its target's convention in words (unchanged without a target)."""
+    target = scenario.targets.service.get(fp.place)
+    if target is None:
+        return fp
+    return dataclasses.replace(fp, convention=target.describe(scenario.time_unit))
+
+
 def stationary_place(scenario: Scenario, rates, source_rates, place: str) -> FluidPlace:
     """Steady-state figures of ``place`` from constant fluid rates (one place at a time; see
     the module docstring)."""
+    return _described(scenario, _stationary_place(scenario, rates, source_rates, place))
+
+
+def _stationary_place(scenario: Scenario, rates, source_rates, place: str) -> FluidPlace:
     target = scenario.targets.service.get(place)
     within = None if target is None else float(target.within)
     lam = float(inflow(scenario, place, rates, source_rates))
@@ -247,8 +262,8 @@ def window_place(scenario: Scenario, sol, place: str, window, *, state: str) -> 
     if state != "time-varying":
         state = ("idle" if lam <= 0 else "overloaded" if share > PLACE_TOLERANCE
                  else "underloaded")
-    return FluidPlace(place, lam, rho, state, wait, wait_served, share, queue, served_within,
-                      within)
+    return _described(scenario, FluidPlace(place, lam, rho, state, wait, wait_served, share,
+                                           queue, served_within, within))
 
 
 def place_figures(scenario: Scenario, rates, source_rates, sol=None,

@@ -66,8 +66,9 @@ class Comparison:
         """``{"scenario", "time_unit", "settings", "fluid", "simulation", "gaps", "gap_convention",
         "flags", "transient", "interval", "notes"}`` (design.md §5; ``gap_convention``: the one
         sign convention of every gap, :data:`compare.study.gap.GAP_CONVENTION`), and
-        ``"verdicts"`` (False: fewer than two replications, flags not judged); nan and inf become
-        null."""
+        ``"verdicts"`` (False: fewer than two replications, flags not judged), ``"targets"`` (the
+        service targets and what each service level measures, as the simulation's); nan and inf
+        become null."""
         transient = None
         if self.transient is not None:
             transient = json_ready(self.transient.to_dict("records"))
@@ -77,6 +78,7 @@ class Comparison:
             "settings": self.settings.to_json(),
             "fluid": self.fluid.to_dict(),
             "simulation": self.simulation.to_json(),
+            "targets": dict(self.simulation.targets),
             "gaps": self.gaps.to_json(),
             "gap_convention": GAP_CONVENTION,
             "flags": [f.to_json() for f in self.flags],
