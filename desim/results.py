@@ -16,7 +16,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from .estimate import NON_NEGATIVE, SHARE, Estimate, interval_method
-from .run import DEFAULT_PERCENTILES, RunResult, percentile_metric
+from .run import (ABANDONED_PREFIX, DEFAULT_PERCENTILES, SERVED_PREFIX, RunResult,
+                  percentile_metric)
 from .warmup import mser5
 
 if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is slow)
@@ -53,6 +54,8 @@ BOUNDS = {
 }
 
 _CALLER_METRICS = frozenset(CALLER_OUTCOMES.values())
+#: Every wait percentile's prefix: all jobs that left, served only, abandoners only.
+_WAIT_PREFIXES = ("wait_p", SERVED_PREFIX, ABANDONED_PREFIX)
 
 
 @dataclass(frozen=True)
@@ -151,15 +154,25 @@ class SimulationResult:
 
     def wait_distribution_json(self) -> dict:
         """The waits' figures of each waiting place as JSON: ``{p: {"asa": est,
-        "wait_percentiles": {"50": est, "80": est, ...}}}`` (percentile in percent as the key,
-        each estimate ``{"mean", "low", "high", "n"}``; times in the scenario's time unit)."""
+        "wait_percentiles": {"50": est, "80": est, ...}, "served_wait_percentiles": {...},
+        "abandoned_wait_percentiles": {...}}}`` (percentile in percent as the key, each estimate
+        ``{"mean", "low", "high", "n"}`` over the replications; times in the scenario's time
+        unit). ``wait_percentiles`` are over every job that left (taken or abandoning);
+        ``served_wait_percentiles`` over the taken jobs' waits; ``abandoned_wait_percentiles``
+        over the abandoners' times to abandon (n counts the replications that had any)."""
         out = {}
         for name, ms in self.places.items():
             if "asa" not in ms:
                 continue
-            out[name] = {"asa": ms["asa"].to_json(),
-                         "wait_percentiles": {m.removeprefix("wait_p"): e.to_json()
-                                              for m, e in ms.items() if m.startswith("wait_p")}}
+            doc = {"asa": ms["asa"].to_json()}
+            for key, prefix in (("wait_percentiles", "wait_p"),
+                                ("served_wait_percentiles", SERVED_PREFIX),
+                                ("abandoned_wait_percentiles", ABANDONED_PREFIX)):
+                found = {m.removeprefix(prefix): e.to_json() for m, e in ms.items()
+                         if m.startswith(prefix)}
+                if found or key == "wait_percentiles":  # (older runs have only the first)
+                    doc[key] = found
+            out[name] = doc
         return out
 
     def per_replication(self) -> pd.DataFrame:
@@ -250,12 +263,12 @@ def _estimates(runs: list[RunResult], kind_table: str, metrics: tuple[str, ...] 
 
 
 def _is_wait_metric(metric: str) -> bool:
-    return metric in WAIT_METRICS or metric.startswith("wait_p")
+    return metric in WAIT_METRICS or metric.startswith(_WAIT_PREFIXES)
 
 
 def _wait_bounds(metric: str) -> tuple[float, float] | None:
     """Bounds of a wait figure not named in :data:`BOUNDS` (a percentile asked for)."""
-    return NON_NEGATIVE if metric.startswith("wait_p") else None
+    return NON_NEGATIVE if metric.startswith(_WAIT_PREFIXES) else None
 
 
 def _interval_estimates(runs: list[RunResult]) -> pd.DataFrame | None:

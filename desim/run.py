@@ -24,7 +24,9 @@ job is kept unless asked for (design.md §4.2):
   :data:`DEFAULT_PERCENTILES`): that percentile of the waits of the jobs that left the place in
   the window, taken and abandoning together (the jobs ``wait`` averages over; numpy's linear
   percentile); ``asa``, the average speed of answer: the mean wait of the jobs TAKEN in the window
-  (abandoners left out). These need the window's waits, so every run keeps them while it runs
+  (abandoners left out); ``served_wait_p50``, ... the percentiles of the taken jobs' waits and
+  ``abandoned_wait_p50``, ... those of the abandoners' times to abandon, apart. These need the
+  window's waits, so every run keeps them while it runs
   (one float per job leaving a place in the window: 8 bytes each, some MB for a day of calls)
   and drops them afterwards unless ``record_waits``;
 * transition ``rate``: firings per time unit;
@@ -64,7 +66,8 @@ if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is 
     import pandas as pd
 
 __all__ = ["RunResult", "run_replication", "DEFAULT_MAX_JOBS", "DEFAULT_SAMPLES", "check_settings",
-           "waiting_places", "DEFAULT_PERCENTILES", "percentile_metric", "check_percentiles"]
+           "waiting_places", "DEFAULT_PERCENTILES", "percentile_metric", "check_percentiles",
+           "SERVED_PREFIX", "ABANDONED_PREFIX"]
 
 #: Jobs allowed inside at once before a run is declared unstable (about 0.3 GB per run).
 DEFAULT_MAX_JOBS = 1_000_000
@@ -92,19 +95,31 @@ def check_percentiles(percentiles) -> tuple[float, ...]:
     return tuple(dict.fromkeys(out))
 
 
+#: Prefixes of the percentiles of the served jobs' waits and of the abandoners' times to
+#: abandon, drawn apart (``served_wait_p50``, ``abandoned_wait_p50``, ...).
+SERVED_PREFIX = "served_wait_p"
+ABANDONED_PREFIX = "abandoned_wait_p"
+
+
+def _percentiles(values: np.ndarray, percentiles: tuple[float, ...], prefix: str) -> dict:
+    names = [prefix + percentile_metric(q).removeprefix("wait_p") for q in percentiles]
+    if not values.size:
+        return dict.fromkeys(names, math.nan)
+    return dict(zip(names, np.percentile(values, percentiles).tolist()))
+
+
 def _wait_figures(taken: list[float], abandoned: list[float],
                   percentiles: tuple[float, ...]) -> dict[str, float]:
     """Per place and run: the wait percentiles over every job that left in the window (taken
-    or abandoning) and the average speed of answer (mean wait of the taken ones); nan where
-    nothing left."""
-    every = np.concatenate([np.asarray(taken, dtype=float), np.asarray(abandoned, dtype=float)])
-    out = {}
-    if every.size:
-        for q, v in zip(percentiles, np.percentile(every, percentiles).tolist()):
-            out[percentile_metric(q)] = v
-    else:
-        out.update((percentile_metric(q), math.nan) for q in percentiles)
-    out["asa"] = float(np.mean(taken)) if len(taken) else math.nan
+    or abandoning), the same over the taken jobs alone (``served_wait_pNN``) and over the
+    abandoners alone (``abandoned_wait_pNN``, their times to abandon), and the average speed of
+    answer (mean wait of the taken ones); nan where nothing (of that kind) left."""
+    taken_a = np.asarray(taken, dtype=float)
+    abandoned_a = np.asarray(abandoned, dtype=float)
+    out = _percentiles(np.concatenate([taken_a, abandoned_a]), percentiles, "wait_p")
+    out["asa"] = float(np.mean(taken_a)) if taken_a.size else math.nan
+    out.update(_percentiles(taken_a, percentiles, SERVED_PREFIX))
+    out.update(_percentiles(abandoned_a, percentiles, ABANDONED_PREFIX))
     return out
 
 

@@ -190,3 +190,35 @@ def test_conventions_by_hand(net, convention, first, window):
     assert t[(0, "service_level", "queue")] == pytest.approx(first, abs=1e-15)
     assert t[(1, "service_level", "queue")] == 1.0
     assert r.places["queue"]["served_within"] == pytest.approx(window, abs=1e-15)
+
+
+def test_served_and_abandoned_waits_apart(net):
+    # The hand trace above, whole window: taken waits 0, 3, 0, 0, 0 (jobs 0, 1, 3, 4, 5), one
+    # abandoner after 5 (job 2). Numpy's linear percentiles: served p80 = 0.6 (0.8 × 4 = 3.2nd
+    # of 0, 0, 0, 0, 3 lies 0.2 of the way from 0 to 3); the abandoner's p50 = 5; of all six,
+    # p80 = 3 (0.8 × 5 = 4th of 0, 0, 0, 0, 3, 5).
+    r = run_replication(net(IMPATIENT, calls=ARRIVALS), 0, record_waits=True)
+    q = r.places["queue"]
+    assert q["served_wait_p50"] == 0.0 and q["served_wait_p80"] == pytest.approx(0.6)
+    assert q["abandoned_wait_p50"] == 5.0 and q["abandoned_wait_p95"] == 5.0
+    assert q["wait_p80"] == 3.0
+    assert q["asa"] == pytest.approx(3 / 5)
+
+
+def test_wait_distribution_json_keeps_its_keys_and_adds_the_groups(net):
+    r = replicate(net(MARKOV), reps=3, horizon=200, warmup=0, workers=1)
+    doc = r.to_json()
+    w = doc["wait_distribution"]["queue"]
+    assert set(w) == {"asa", "wait_percentiles", "served_wait_percentiles",
+                      "abandoned_wait_percentiles"}
+    assert set(w["served_wait_percentiles"]) == set(w["wait_percentiles"]) == {"50", "80", "90",
+                                                                                "95"}
+    assert set(doc["places"]["queue"]) == {"wait", "abandoned", "queue", "served_within",
+                                           "delayed"}
+    assert doc["targets"] == {"queue": {"within": 0.5, "goal": 0.8, "abandoned": "against",
+                                        "excluded_within": None,
+                                        "describes": "within 0.5 min, abandoners counted "
+                                                     "against"}}
+    for group in ("served_wait_percentiles", "abandoned_wait_percentiles"):
+        for est in w[group].values():
+            assert est["n"] == 3 and 0 <= est["low"] <= est["mean"] <= est["high"]
