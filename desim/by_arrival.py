@@ -20,7 +20,6 @@ interval that starts there, as the snapshots count it. All times in the scenario
 
 from __future__ import annotations
 
-import math
 from bisect import bisect_right
 
 __all__ = ["PlaceTally", "CallerTally", "attach_tallies", "inside_by_interval"]
@@ -123,8 +122,3 @@ def inside_by_interval(engine, times: list) -> list[int]:
         _grow(counts, k)
         counts[k] += 1
     return counts
-
-
-def share(a: float, b: float) -> float:
-    """``a / b``, nan when ``b`` is 0."""
-    return a / b if b > 0 else math.nan
