@@ -513,9 +513,15 @@ class Engine:
         place.left_q += 1
         place.wait_sum += w
         place.abandoned += 1
-        if job.avail < self.warmup:
+        early = job.avail < self.warmup
+        if early:
             place.left_early += 1
             place.abandoned_early += 1
+        if w > place.late_after:  # (counts against the service level, by its convention)
+            place.late_q += 1
+            place.late_early += early
+        if place.tally is not None:
+            place.tally.abandoned_after(job.avail, w)
         job.waited += w
         if place.stale_timers > 2 * place.n_avail + STALE_TIMER_SLACK:
             self._drop_stale_timers()
@@ -542,6 +548,8 @@ class Engine:
             if outcome == "lost":
                 src.lost += 1
                 self.lost += 1
+            if src.tally is not None:
+                src.tally.unserved(job.arrival)
         if job.arrival >= self.warmup:
             src.ended_new[_OUTCOME_INDEX[outcome]] += 1
         src.wait_sum += job.waited
@@ -635,6 +643,8 @@ class Engine:
                 place.within_early += 1
         if place.waits_taken is not None and now >= self.warmup:
             place.waits_taken.append(w)
+        if place.tally is not None:
+            place.tally.taken(job.avail, w)
         t.fired += 1
         return self._move(t, job, now)
 

@@ -104,7 +104,8 @@ class PlaceState:
         "heap", "heap_dead", "armed_at", "gen", "stale_timers", "plain", "held",
         "n_avail", "n_hold", "area", "last", "wait_sum", "abandoned", "within",
         "became_q", "left_q", "within_q", "zero_q", "waits_taken", "waits_abandoned",
-        "left_early", "abandoned_early", "within_early", "loses",
+        "left_early", "abandoned_early", "within_early", "loses", "late_after", "late_q",
+        "late_early", "tally",
     )
 
     def __init__(self, name: str):
@@ -132,6 +133,13 @@ class PlaceState:
         self.wait_sum = 0.0
         self.abandoned = 0
         self.within = -1.0  # service-level threshold; negative = no target
+        # The target's abandoner convention: abandoners that waited more than `late_after`
+        # count against the service level (-1: all of them; inf: none); `late_q` counts them
+        # (`late_early`: of those, the jobs that became available before the warm-up)
+        self.late_after = -1.0
+        self.late_q = 0
+        self.late_early = 0
+        self.tally = None  # per-interval counts by arrival interval (desim.by_arrival), or None
         # Counts of tokens. Most tokens taken the instant they become available skip the FIFO
         # (the engine's shortcuts) and are counted by their FIFO alone (Fifo.at_once); the
         # others in the `_q` counters. Read the totals through the properties below.
@@ -299,7 +307,7 @@ class SourceState:
     None."""
 
     __slots__ = ("name", "place", "spacing", "next_time", "arrived", "completed", "abandoned",
-                 "wait_sum", "lost", "ended_new", "rate_factor")
+                 "wait_sum", "lost", "ended_new", "rate_factor", "tally")
 
     def __init__(self, name: str, place: PlaceState, clock: ArrivalClock,
                  rate_factor: float | None = None):
@@ -316,6 +324,7 @@ class SourceState:
         # per-caller outcomes (served, abandoned, lost) of jobs that arrived at or after the
         # engine's warm-up, counted when they end
         self.ended_new = [0, 0, 0]
+        self.tally = None  # unserved callers by arrival interval (desim.by_arrival), or None
 
 
 class Net:
@@ -330,6 +339,17 @@ class Net:
         self.transitions: list[TransitionState] = transitions  # by rank
         self.sources: dict[str, SourceState] = sources
         self.shortcuts = shortcuts  # whether the facts of _shortcuts were set
+
+
+def late_after(target) -> float:
+    """The wait after which an abandoner counts against ``target``'s service level: -1 (every
+    abandoner, "against"), inf (none, "excluded"), or the target's ``excluded_within``."""
+    convention = getattr(target, "abandoned", "against")
+    if convention == "excluded":
+        return INF
+    if convention == "excluded_within":
+        return float(target.excluded_within)
+    return -1.0
 
 
 def transition_order(scenario: Scenario) -> list[str]:
@@ -399,6 +419,7 @@ def build_net(scenario: Scenario, seed: int, replication: int, *, record_waits: 
         target = scenario.targets.service.get(p.name)
         if target is not None:
             ps.within = target.within
+            ps.late_after = late_after(target)
         if record_waits:
             ps.waits_taken, ps.waits_abandoned = [], []
         places[p.name] = ps

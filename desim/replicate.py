@@ -147,7 +147,9 @@ def replicate(scenario: Scenario, *, reps: int | None = None, horizon: float | N
                                 shortcuts=shortcuts, **run_settings) if todo else []
         runs = sorted([*saved.values(), *runs], key=lambda r: r.replication)
         result = summarize(runs, scenario_name=scenario.name, time_unit=scenario.time_unit,
-                           steady_state=not scenario.has_time_variation)
+                           steady_state=not scenario.has_time_variation,
+                           targets={p: t.to_json(scenario.time_unit)
+                                    for p, t in scenario.targets.service.items()})
         if store is not None:
             store.save_summary(result)
     return result

@@ -16,7 +16,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from .estimate import NON_NEGATIVE, SHARE, Estimate, interval_method
-from .run import DEFAULT_PERCENTILES, RunResult, percentile_metric
+from .run import (ABANDONED_PREFIX, DEFAULT_PERCENTILES, SERVED_PREFIX, RunResult,
+                  percentile_metric)
 from .warmup import mser5
 
 if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is slow)
@@ -49,10 +50,13 @@ BOUNDS = {
                 "callers_served": SHARE, "callers_abandoned": SHARE, "callers_lost": SHARE,
                 "rate_factor": NON_NEGATIVE},
     "interval": {"arrivals": NON_NEGATIVE, "completed": NON_NEGATIVE, "abandoned": NON_NEGATIVE,
-                 "service_level": SHARE, "queue": NON_NEGATIVE},
+                 "service_level": SHARE, "abandonment": SHARE, "wait": NON_NEGATIVE,
+                 "queue": NON_NEGATIVE, "busy": SHARE, "staff": NON_NEGATIVE},
 }
 
 _CALLER_METRICS = frozenset(CALLER_OUTCOMES.values())
+#: Every wait percentile's prefix: all jobs that left, served only, abandoners only.
+_WAIT_PREFIXES = ("wait_p", SERVED_PREFIX, ABANDONED_PREFIX)
 
 
 @dataclass(frozen=True)
@@ -116,6 +120,9 @@ class SimulationResult:
     warnings: list
     unstable: tuple
     runs: tuple = field(repr=False)
+    #: the scenario's service targets as JSON, ``{place: {"within", "goal", "abandoned",
+    #: "excluded_within", "describes"}}`` (what each ``served_within`` measures)
+    targets: dict = field(default_factory=dict)
 
     @property
     def unstable_replications(self) -> int:
@@ -149,15 +156,25 @@ class SimulationResult:
 
     def wait_distribution_json(self) -> dict:
         """The waits' figures of each waiting place as JSON: ``{p: {"asa": est,
-        "wait_percentiles": {"50": est, "80": est, ...}}}`` (percentile in percent as the key,
-        each estimate ``{"mean", "low", "high", "n"}``; times in the scenario's time unit)."""
+        "wait_percentiles": {"50": est, "80": est, ...}, "served_wait_percentiles": {...},
+        "abandoned_wait_percentiles": {...}}}`` (percentile in percent as the key, each estimate
+        ``{"mean", "low", "high", "n"}`` over the replications; times in the scenario's time
+        unit). ``wait_percentiles`` are over every job that left (taken or abandoning);
+        ``served_wait_percentiles`` over the taken jobs' waits; ``abandoned_wait_percentiles``
+        over the abandoners' times to abandon (n counts the replications that had any)."""
         out = {}
         for name, ms in self.places.items():
             if "asa" not in ms:
                 continue
-            out[name] = {"asa": ms["asa"].to_json(),
-                         "wait_percentiles": {m.removeprefix("wait_p"): e.to_json()
-                                              for m, e in ms.items() if m.startswith("wait_p")}}
+            doc = {"asa": ms["asa"].to_json()}
+            for key, prefix in (("wait_percentiles", "wait_p"),
+                                ("served_wait_percentiles", SERVED_PREFIX),
+                                ("abandoned_wait_percentiles", ABANDONED_PREFIX)):
+                found = {m.removeprefix(prefix): e.to_json() for m, e in ms.items()
+                         if m.startswith(prefix)}
+                if found or key == "wait_percentiles":  # (older runs have only the first)
+                    doc[key] = found
+            out[name] = doc
         return out
 
     def per_replication(self) -> pd.DataFrame:
@@ -218,6 +235,7 @@ class SimulationResult:
             "seed": self.seed,
             "transitions": table(self.transitions),
             "places": pinned_places(),
+            "targets": self.targets,
             "wait_distribution": self.wait_distribution_json(),
             "pools": table(self.pools),
             "sources": self._sources_json(),
@@ -247,12 +265,12 @@ def _estimates(runs: list[RunResult], kind_table: str, metrics: tuple[str, ...] 
 
 
 def _is_wait_metric(metric: str) -> bool:
-    return metric in WAIT_METRICS or metric.startswith("wait_p")
+    return metric in WAIT_METRICS or metric.startswith(_WAIT_PREFIXES)
 
 
 def _wait_bounds(metric: str) -> tuple[float, float] | None:
     """Bounds of a wait figure not named in :data:`BOUNDS` (a percentile asked for)."""
-    return NON_NEGATIVE if metric.startswith("wait_p") else None
+    return NON_NEGATIVE if metric.startswith(_WAIT_PREFIXES) else None
 
 
 def _interval_estimates(runs: list[RunResult]) -> pd.DataFrame | None:
@@ -287,9 +305,10 @@ def _warmup_suggestion(runs: list[RunResult], steady_state: bool) -> WarmupSugge
 
 
 def summarize(runs: list[RunResult], *, scenario_name: str, time_unit: str,
-              steady_state: bool = True) -> SimulationResult:
+              steady_state: bool = True, targets: dict | None = None) -> SimulationResult:
     """Combine per-replication results (in replication order) into a :class:`SimulationResult`.
-    ``steady_state``: the scenario has constant rates and staff, so MSER-5 warnings apply."""
+    ``steady_state``: the scenario has constant rates and staff, so MSER-5 warnings apply.
+    ``targets``: the service targets as JSON (:attr:`SimulationResult.targets`)."""
     first = runs[0]
     suggestion = _warmup_suggestion(runs, steady_state)
     warnings: list[str] = []
@@ -318,4 +337,5 @@ def summarize(runs: list[RunResult], *, scenario_name: str, time_unit: str,
         sources=_estimates(runs, "sources", SOURCE_METRICS),
         intervals=_interval_estimates(runs),
         warmup_suggestion=suggestion, warnings=warnings, unstable=unstable, runs=tuple(runs),
+        targets=dict(targets or {}),
     )

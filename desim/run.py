@@ -24,7 +24,9 @@ job is kept unless asked for (design.md §4.2):
   :data:`DEFAULT_PERCENTILES`): that percentile of the waits of the jobs that left the place in
   the window, taken and abandoning together (the jobs ``wait`` averages over; numpy's linear
   percentile); ``asa``, the average speed of answer: the mean wait of the jobs TAKEN in the window
-  (abandoners left out). These need the window's waits, so every run keeps them while it runs
+  (abandoners left out); ``served_wait_p50``, ... the percentiles of the taken jobs' waits and
+  ``abandoned_wait_p50``, ... those of the abandoners' times to abandon, apart. These need the
+  window's waits, so every run keeps them while it runs
   (one float per job leaving a place in the window: 8 bytes each, some MB for a day of calls)
   and drops them afterwards unless ``record_waits``;
 * transition ``rate``: firings per time unit;
@@ -56,6 +58,7 @@ import numpy as np
 from fluid.scenario import OUTCOMES, Limits, Scenario
 from fluid.structure import waiting_places
 
+from .by_arrival import attach_tallies, inside_by_interval
 from .engine import EVENTS_AT_ONE_INSTANT, Engine
 from .net import Net, build_net
 from .warmup import MserResult, mser5
@@ -64,7 +67,8 @@ if TYPE_CHECKING:  # pandas is imported where a table is built (importing it is 
     import pandas as pd
 
 __all__ = ["RunResult", "run_replication", "DEFAULT_MAX_JOBS", "DEFAULT_SAMPLES", "check_settings",
-           "waiting_places", "DEFAULT_PERCENTILES", "percentile_metric", "check_percentiles"]
+           "waiting_places", "DEFAULT_PERCENTILES", "percentile_metric", "check_percentiles",
+           "SERVED_PREFIX", "ABANDONED_PREFIX"]
 
 #: Jobs allowed inside at once before a run is declared unstable (about 0.3 GB per run).
 DEFAULT_MAX_JOBS = 1_000_000
@@ -92,24 +96,37 @@ def check_percentiles(percentiles) -> tuple[float, ...]:
     return tuple(dict.fromkeys(out))
 
 
+#: Prefixes of the percentiles of the served jobs' waits and of the abandoners' times to
+#: abandon, drawn apart (``served_wait_p50``, ``abandoned_wait_p50``, ...).
+SERVED_PREFIX = "served_wait_p"
+ABANDONED_PREFIX = "abandoned_wait_p"
+
+
+def _percentiles(values: np.ndarray, percentiles: tuple[float, ...], prefix: str) -> dict:
+    names = [prefix + percentile_metric(q).removeprefix("wait_p") for q in percentiles]
+    if not values.size:
+        return dict.fromkeys(names, math.nan)
+    return dict(zip(names, np.percentile(values, percentiles).tolist()))
+
+
 def _wait_figures(taken: list[float], abandoned: list[float],
                   percentiles: tuple[float, ...]) -> dict[str, float]:
     """Per place and run: the wait percentiles over every job that left in the window (taken
-    or abandoning) and the average speed of answer (mean wait of the taken ones); nan where
-    nothing left."""
-    every = np.concatenate([np.asarray(taken, dtype=float), np.asarray(abandoned, dtype=float)])
-    out = {}
-    if every.size:
-        for q, v in zip(percentiles, np.percentile(every, percentiles).tolist()):
-            out[percentile_metric(q)] = v
-    else:
-        out.update((percentile_metric(q), math.nan) for q in percentiles)
-    out["asa"] = float(np.mean(taken)) if len(taken) else math.nan
+    or abandoning), the same over the taken jobs alone (``served_wait_pNN``) and over the
+    abandoners alone (``abandoned_wait_pNN``, their times to abandon), and the average speed of
+    answer (mean wait of the taken ones); nan where nothing (of that kind) left."""
+    taken_a = np.asarray(taken, dtype=float)
+    abandoned_a = np.asarray(abandoned, dtype=float)
+    out = _percentiles(np.concatenate([taken_a, abandoned_a]), percentiles, "wait_p")
+    out["asa"] = float(np.mean(taken_a)) if taken_a.size else math.nan
+    out.update(_percentiles(taken_a, percentiles, SERVED_PREFIX))
+    out.update(_percentiles(abandoned_a, percentiles, ABANDONED_PREFIX))
     return out
 
 
 _PLACE_FIELDS = ("became", "left", "wait_sum", "abandoned", "taken_within", "area",
-                 "taken_at_once", "left_early", "abandoned_early", "within_early")
+                 "taken_at_once", "left_early", "abandoned_early", "within_early", "at_once",
+                 "late", "late_early")
 _SOURCE_FIELDS = ("arrived", "completed", "abandoned", "wait_sum", "lost", "served_new",
                   "abandoned_new", "lost_new")
 
@@ -179,7 +196,8 @@ def _snapshot(net: Net, now: float) -> np.ndarray:
     values: list[float] = []
     for p in net.places.values():
         values += (p.became, p.left, p.wait_sum, p.abandoned, p.taken_within, p.area_at(now),
-                   p.taken_at_once, p.left_early, p.abandoned_early, p.within_early)
+                   p.taken_at_once, p.left_early, p.abandoned_early, p.within_early, p.at_once,
+                   p.late_q, p.late_early)
     for r in net.pools.values():
         values += r.areas_at(now)
     values += (t.firings for t in net.transitions)
@@ -216,6 +234,17 @@ def _ratio(a: float, b: float) -> float:
     return a / b if b > 0 else math.nan
 
 
+def _served_within(target, within: float, left: float, abandoned: float, late: float) -> float:
+    """The service level under ``target``'s abandoner convention, from counts of the same jobs:
+    ``within`` taken within the target, ``left`` taken or abandoned, ``abandoned``, and
+    ``late`` the abandoners that count against it (all of them for "against", none for
+    "excluded", those that waited more than ``excluded_within`` otherwise): taken within /
+    (taken + abandoners counted against)."""
+    if getattr(target, "abandoned", "against") == "against":
+        return _ratio(within, left)  # (late == abandoned: the same figure, as it always was)
+    return _ratio(within, left - abandoned + late)
+
+
 def _window_stats(scenario: Scenario, net: Net, delta: np.ndarray, length: float):
     places_d, pools_d, trans_d, sources_d = _split(net, delta)
     transitions = {
@@ -232,8 +261,11 @@ def _window_stats(scenario: Scenario, net: Net, delta: np.ndarray, length: float
             "abandoned": _ratio(d["abandoned"] - d["abandoned_early"], outcomes),
             "queue": _ratio(d["area"], length),
         }
-        if name in scenario.targets.service:
-            m["served_within"] = _ratio(d["taken_within"] - d["within_early"], outcomes)
+        target = scenario.targets.service.get(name)
+        if target is not None:
+            m["served_within"] = _served_within(
+                target, d["taken_within"] - d["within_early"], outcomes,
+                d["abandoned"] - d["abandoned_early"], d["late"] - d["late_early"])
         m["delayed"] = _ratio(d["became"] - d["taken_at_once"], d["became"])
         m.update(became=int(d["became"]), left=int(d["left"]), abandoned_count=int(d["abandoned"]))
         places[name] = m
@@ -257,15 +289,23 @@ def _window_stats(scenario: Scenario, net: Net, delta: np.ndarray, length: float
     return transitions, places, pools, sources
 
 
-def _interval_table(scenario: Scenario, net: Net, times: list[float], snaps: list[np.ndarray]):
+def _interval_table(scenario: Scenario, net: Net, times: list[float], snaps: list[np.ndarray],
+                    inside: list[int]):
+    """The per-interval table of one run (columns interval, start, end, metric, name, value;
+    the metrics of :func:`desim.replicate`'s ``intervals``). Counts of arrivals, ends and
+    abandonments are those that happened in the interval; service level, abandonment per
+    caller and wait count each job in the interval it became available (arrived), from the
+    tallies of :mod:`desim.by_arrival`; ``inside``: jobs still inside at the end by arrival
+    interval."""
     import pandas as pd
 
-    targets = tuple(scenario.targets.service)
+    targets = scenario.targets.service
     waiting = waiting_places(scenario)
+    callers = next(iter(net.sources.values())).tally if net.sources else None
     rows = []
     for i in range(len(times) - 1):
         start, end = times[i], times[i + 1]
-        places_d, _, _, sources_d = _split(net, snaps[i + 1] - snaps[i])
+        places_d, pools_d, _, sources_d = _split(net, snaps[i + 1] - snaps[i])
         length = end - start
         arrivals = sum(d["arrived"] for d in sources_d.values())
         completed = sum(d["completed"] for d in sources_d.values())
@@ -273,11 +313,24 @@ def _interval_table(scenario: Scenario, net: Net, times: list[float], snaps: lis
         rows += [(i, start, end, "arrivals", "", arrivals),
                  (i, start, end, "completed", "", completed),
                  (i, start, end, "abandoned", "", abandoned)]
-        for p in targets:
-            d = places_d[p]
-            rows.append((i, start, end, "service_level", p, _ratio(d["taken_within"], d["became"])))
+        for p, target in targets.items():
+            d, tally = places_d[p], net.places[p].tally
+            # (tokens taken the instant they became available are counted by the snapshots)
+            left = d["at_once"] + tally.count("left", i)
+            within = d["at_once"] + tally.count("within", i)
+            rows.append((i, start, end, "service_level", p, _served_within(
+                target, within, left, tally.count("abandoned", i), tally.count("late", i))))
+        ended = arrivals - (inside[i] if i < len(inside) else 0)
+        unserved = callers.count(i) if callers is not None else 0
+        rows.append((i, start, end, "abandonment", "", _ratio(unserved, ended)))
         for p in waiting:
-            rows.append((i, start, end, "queue", p, _ratio(places_d[p]["area"], length)))
+            d, tally = places_d[p], net.places[p].tally
+            rows.append((i, start, end, "wait", p, _ratio(
+                tally.count("wait_sum", i), d["at_once"] + tally.count("left", i))))
+            rows.append((i, start, end, "queue", p, _ratio(d["area"], length)))
+        for r, d in pools_d.items():
+            rows.append((i, start, end, "busy", r, _ratio(d["busy_area"], d["duty_area"])))
+            rows.append((i, start, end, "staff", r, _ratio(d["duty_area"], length)))
     return pd.DataFrame(rows, columns=["interval", "start", "end", "metric", "name", "value"])
 
 
@@ -356,6 +409,8 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
     times: list[float] = []
     interval_snaps: list[np.ndarray] = []
     if interval is not None:
+        attach_tallies(net, dict.fromkeys((*scenario.targets.service, *waiting_places(scenario))),
+                       times)
         def boundary(e: Engine) -> None:
             now = float(e.env.now)
             times.append(now)
@@ -394,7 +449,8 @@ def run_replication(scenario: Scenario, replication: int = 0, *, horizon: float 
         if times[-1] < end:
             times.append(end)
             interval_snaps.append(final)
-        intervals = _interval_table(scenario, net, times, interval_snaps)
+        intervals = _interval_table(scenario, net, times, interval_snaps,
+                                    inside_by_interval(engine, times))
 
     if not engine.unstable:
         areas.append(total_area(end))

@@ -54,8 +54,9 @@ __all__ = ["RunStore", "StoreError", "FolderLock", "FORMAT", "run_from_json", "r
 
 #: Version of the file layout; a directory written with another layout is refused.
 #: 2: the manifest records the sha256 of every replication file; 3: window shares count the
-#: same jobs in numerator and denominator (a run of layout 2 would mix the two definitions).
-FORMAT = 3
+#: same jobs in numerator and denominator (a run of layout 2 would mix the two definitions);
+#: 4: the per-interval service level counts each job in the interval it became available.
+FORMAT = 4
 MANIFEST = "manifest.json"
 SUMMARY = "summary.json"
 JOURNAL = ".checksums.journal"

@@ -482,6 +482,18 @@ def _check_outcomes(transitions_doc: Mapping, places: Mapping[str, Place]) -> No
 
 
 
+def _abandoner_convention(value: Any, path: str) -> tuple[str, float | None]:
+    """``against`` | ``excluded`` | ``{excluded_within: T}`` (T >= 0) -> (convention, T)."""
+    if isinstance(value, dict):
+        _known_keys(value, ("excluded_within",), path)
+        if "excluded_within" not in value:
+            raise FieldError(f"{path}.excluded_within", "is required")
+        return "excluded_within", _real(value["excluded_within"], f"{path}.excluded_within")
+    if isinstance(value, str) and value in ("against", "excluded"):
+        return value, None
+    raise FieldError(path, "must be against, excluded or {excluded_within: T}", value)
+
+
 def _build_targets(spec: dict) -> Targets:
     service: dict[str, ServiceTarget] = {}
     abandonment_max = None
@@ -497,11 +509,14 @@ def _build_targets(spec: dict) -> Targets:
                 raise FieldError(f"{path}.max", "is a share and must be <= 1", abandonment_max)
             continue
         place = _name(key, "targets")
-        _known_keys(value, ("within", "goal"), path)
+        _known_keys(value, ("within", "goal", "abandoned"), path)
         if "within" not in value or "goal" not in value:
             raise FieldError(path, "needs within and goal")
         goal = _real(value["goal"], f"{path}.goal", strict=True)
         if goal > 1:
             raise FieldError(f"{path}.goal", "is a share and must be <= 1", goal)
-        service[place] = ServiceTarget(place, _real(value["within"], f"{path}.within"), goal)
+        convention, excluded_within = _abandoner_convention(value.get("abandoned", "against"),
+                                                            f"{path}.abandoned")
+        service[place] = ServiceTarget(place, _real(value["within"], f"{path}.within"), goal,
+                                       convention, excluded_within)
     return Targets(service=FrozenMap(service), abandonment_max=abandonment_max)

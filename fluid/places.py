@@ -15,14 +15,17 @@ Three ways, each exact for the fluid model it reads:
 * **from the counters without patience** over a window (time-varying nets with no patience):
   time-average queue, Little's law, first-in first-out service level along the counter curves.
 
-``served_within`` is the share of the jobs becoming available that are taken within the target
-(abandoners counted against). ``wait`` is the mean over all jobs leaving (served or abandoning),
+``served_within`` is the share of the jobs becoming available that are taken within the target,
+under the target's abandoner convention (:class:`fluid.scenario.ServiceTarget`): abandoners
+counted against (the default), excluded, or excluded when they abandon within
+``excluded_within`` (later ones counted against); see :func:`convention_share`. ``wait`` is the mean over all jobs leaving (served or abandoning),
 by Little's law (queue / inflow); ``wait_served`` that of the served jobs. Times in the
 scenario's time unit, rates per that unit.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -33,7 +36,8 @@ from .scenario import Scenario
 from .service_level import fifo_service_level, place_curves
 from .structure import inflow, outflow, waiting_places
 
-__all__ = ["PLACE_TOLERANCE", "FluidPlace", "stationary_place", "window_place", "place_figures"]
+__all__ = ["PLACE_TOLERANCE", "FluidPlace", "stationary_place", "window_place", "place_figures",
+           "convention_share", "cohort_service_level", "queue_average"]
 
 #: Relative tolerance below which a place's fluid outflow counts as keeping up with its inflow
 #: (the LP is exact to ~1e-9, the counters' long-run slopes to ~1e-6).
@@ -61,6 +65,7 @@ class FluidPlace:
     queue: float
     served_within: float | None = None
     within: float | None = None
+    convention: str | None = None  # what served_within measures (ServiceTarget.describe)
 
     @property
     def no_wait(self) -> bool:
@@ -72,7 +77,8 @@ class FluidPlace:
         return {"state": self.state, "inflow": _num(self.inflow), "capacity": _num(self.capacity),
                 "wait": _num(self.wait), "wait_served": _num(self.wait_served),
                 "abandoned": _num(self.abandoned), "queue": _num(self.queue),
-                "served_within": _num(self.served_within), "within": _num(self.within)}
+                "served_within": _num(self.served_within), "within": _num(self.within),
+                "convention": self.convention}
 
 
 # --- Whitt (2006), one place -----------------------------------------------------------------------
@@ -98,9 +104,45 @@ def _whitt(lam: float, c: float, patience) -> tuple[float, float, float]:
     return p_ab, w, lam * q
 
 
+def convention_share(target, within_mass: float, taken_mass: float, left_mass: float,
+                     late_mass: float) -> float:
+    """The service level under ``target``'s convention from fluid masses of the same jobs:
+    ``within_mass`` taken within the target, ``taken_mass`` taken, ``left_mass`` all of them
+    (the "against" denominator), ``late_mass`` the abandoners that waited more than the
+    target's ``excluded_within``. nan when the denominator is 0."""
+    convention = getattr(target, "abandoned", "against")
+    if convention == "excluded":
+        base = taken_mass
+    elif convention == "excluded_within":
+        base = taken_mass + late_mass
+    else:
+        base = left_mass
+    return within_mass / base if base > 0 else math.nan
+
+
+def _late_share(target, patience_cdf, waited: float) -> float:
+    """Share of a cohort that abandons after more than the target's ``excluded_within`` and
+    before ``waited``: (F(waited) - F(T2))+ (0 for other conventions)."""
+    if getattr(target, "abandoned", "against") != "excluded_within":
+        return 0.0
+    return max(0.0, patience_cdf(waited) - patience_cdf(float(target.excluded_within)))
+
+
+def _described(scenario: Scenario, fp: FluidPlace) -> FluidPlace:
+    """``fp`` with its target's convention in words (unchanged without a target)."""
+    target = scenario.targets.service.get(fp.place)
+    if target is None:
+        return fp
+    return dataclasses.replace(fp, convention=target.describe(scenario.time_unit))
+
+
 def stationary_place(scenario: Scenario, rates, source_rates, place: str) -> FluidPlace:
     """Steady-state figures of ``place`` from constant fluid rates (one place at a time; see
     the module docstring)."""
+    return _described(scenario, _stationary_place(scenario, rates, source_rates, place))
+
+
+def _stationary_place(scenario: Scenario, rates, source_rates, place: str) -> FluidPlace:
     target = scenario.targets.service.get(place)
     within = None if target is None else float(target.within)
     lam = float(inflow(scenario, place, rates, source_rates))
@@ -117,7 +159,10 @@ def stationary_place(scenario: Scenario, rates, source_rates, place: str) -> Flu
     p_ab, w, q = _whitt(lam, rho, patience)
     served = None
     if target is not None:
-        served = (1.0 - p_ab) if w <= within * (1 + 1e-12) else 0.0
+        # every served job waits w; the abandoners' patience is below w (Whitt 2006)
+        taken = 1.0 - p_ab
+        ok = taken if w <= within * (1 + 1e-12) else 0.0
+        served = convention_share(target, ok, taken, 1.0, _late_share(target, patience.cdf, w))
     return FluidPlace(place, lam, rho, "overloaded", q / lam, w, p_ab, q, served, within)
 
 
@@ -141,12 +186,15 @@ def queue_average(sol, place: str, start: float, end: float) -> float:
 
 
 def cohort_service_level(scenario: Scenario, sol, place: str, within: float, start: float,
-                         end: float) -> float:
+                         end: float, target=None) -> float:
     """Share of the fluid becoming available in an impatient ``place`` during ``(start, end]``
-    that is served within ``within`` (abandoners counted against), from the age-structured
-    queue of the dynamics with abandonment: the cohort of step j is served when the head of the
-    queue has moved past it (first come, first served), after waiting w_j, and what of it is
-    still there then is its survival F^c(w_j) (patience). nan when nothing becomes available."""
+    that is served within ``within``, from the age-structured queue of the dynamics with
+    abandonment: the cohort of step j is served when the head of the queue has moved past it
+    (first come, first served), after waiting w_j, and what of it is still there then is its
+    survival F^c(w_j) (patience). Abandoners are counted by ``target``'s convention (None:
+    counted against, over every cohort; "excluded": over what is taken; "excluded_within" T2:
+    over what is taken and what abandons after waiting more than T2, F(w_j) - F(T2), up to
+    the end of the grid for a cohort never served). nan when nothing becomes available."""
     avail = place_curves(scenario, sol, place)[0] + sol.abandoned[place]
     dt = sol.dt
     n = len(sol.times)
@@ -167,7 +215,15 @@ def cohort_service_level(scenario: Scenario, sol, place: str, within: float, sta
     patience = scenario.places[place].patience
     survive = np.array([1.0 - patience.cdf(w) if w > 0 else 1.0 for w in waits])
     ok = (waits <= within * (1 + 1e-9) + 1e-12) & (served_at < n)
-    return float((new[sel] * survive * ok).sum() / new[sel].sum())
+    mass = new[sel]
+    within_mass = float((mass * survive * ok).sum())
+    if getattr(target, "abandoned", "against") == "against":
+        return within_mass / float(mass.sum())
+    taken = float((mass * survive * (served_at < n)).sum())
+    # (a cohort never served has waited until the end of the grid)
+    waited = np.where(served_at < n, waits, (n - 1 - j + 0.5) * dt)
+    late = float(sum(m * _late_share(target, patience.cdf, w) for m, w in zip(mass, waited)))
+    return float(convention_share(target, within_mass, taken, float(mass.sum()), late))
 
 
 def window_place(scenario: Scenario, sol, place: str, window, *, state: str) -> FluidPlace:
@@ -199,14 +255,15 @@ def window_place(scenario: Scenario, sol, place: str, window, *, state: str) -> 
     served_within = None
     if within is not None:
         if place in sol.head_wait:
-            served_within = cohort_service_level(scenario, sol, place, within, start, end)
-        else:
+            served_within = cohort_service_level(scenario, sol, place, within, start, end,
+                                                 target)
+        else:  # (no abandonment in this fluid: every convention gives the same share)
             served_within = fifo_service_level(scenario, sol, place, within, start, end)
     if state != "time-varying":
         state = ("idle" if lam <= 0 else "overloaded" if share > PLACE_TOLERANCE
                  else "underloaded")
-    return FluidPlace(place, lam, rho, state, wait, wait_served, share, queue, served_within,
-                      within)
+    return _described(scenario, FluidPlace(place, lam, rho, state, wait, wait_served, share,
+                                           queue, served_within, within))
 
 
 def place_figures(scenario: Scenario, rates, source_rates, sol=None,

@@ -30,6 +30,7 @@ __all__ = [
     "Place",
     "Transition",
     "ServiceTarget",
+    "ABANDONER_CONVENTIONS",
     "Targets",
     "Scenario",
     "Limits",
@@ -210,13 +211,39 @@ class Transition:
     outcome: str = "served"
 
 
+#: How a service level counts the jobs that abandon (``targets.PLACE.abandoned``).
+ABANDONER_CONVENTIONS = ("against", "excluded", "excluded_within")
+
+
 @dataclass(frozen=True)
 class ServiceTarget:
-    """Share ``goal`` of the jobs that become available in ``place`` taken within ``within``."""
+    """Share ``goal`` of the jobs that become available in ``place`` taken within ``within``
+    (scenario time unit), counting abandoners by ``abandoned``: "against" (the default: taken
+    within / all that left the place), "excluded" (taken within / taken), or "excluded_within"
+    (abandoners that waited at most ``excluded_within`` left out of both sides, later ones
+    counted against)."""
 
     place: str
     within: float
     goal: float
+    abandoned: str = "against"
+    excluded_within: float | None = None
+
+    def describe(self, time_unit: str) -> str:
+        """What the service level measures, in words: "within 0.5 min, abandoners counted
+        against"."""
+        within = f"within {self.within:g} {time_unit}"
+        if self.abandoned == "excluded":
+            return f"{within}, abandoners excluded"
+        if self.abandoned == "excluded_within":
+            return (f"{within}, abandoners within {self.excluded_within:g} {time_unit} excluded "
+                    "(later ones counted against)")
+        return f"{within}, abandoners counted against"
+
+    def to_json(self, time_unit: str) -> dict:
+        """``{"within", "goal", "abandoned", "excluded_within", "describes"}``."""
+        return {"within": self.within, "goal": self.goal, "abandoned": self.abandoned,
+                "excluded_within": self.excluded_within, "describes": self.describe(time_unit)}
 
 
 @dataclass(frozen=True)

@@ -67,7 +67,9 @@ def fifo_service_level(scenario: Scenario, sol: CounterSolution, place: str, wit
     within ``within`` time units, jobs leaving first-in first-out: a particle that becomes
     available when A reaches level v is taken when D first reaches v (see :func:`place_curves`;
     each grid step's increment of A is represented by its mid-point, exact when A and D are
-    linear between grid points). Patience is ignored. nan when nothing becomes available."""
+    linear between grid points). Patience is ignored, so no fluid abandons here and every
+    abandoner convention of a target (:class:`fluid.scenario.ServiceTarget`) gives this same
+    share. nan when nothing becomes available."""
     avail, taken = place_curves(scenario, sol, place)
     t = sol.times
     mids = (t[:-1] + t[1:]) / 2

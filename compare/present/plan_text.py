@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from .conventions import service_level_lines
 from .tables import fmt, fmt_estimate, format_table
 
 __all__ = ["phases_text", "staff_text", "staff_summary", "staff_line"]
@@ -80,6 +81,8 @@ def staff_text(s, r) -> str:
         summary += ("; meets every target with confidence" if r.meets
                     else "; does NOT meet every target (see the plans tried)")
     parts.append(summary)
+    if s.targets.service:
+        parts.append("\n".join(service_level_lines(s.targets.service, s.time_unit)))
     if r.tried:
         names = list(r.targets)
         rows = []
@@ -104,4 +107,6 @@ def staff_summary(r) -> list[str]:
             f"fluid plan: {staff_line(fp.staff)} (cost {fmt(fp.cost)})",
             f"plan: {staff_line(r.plan)} (cost {fmt(r.plan_cost)})"
             + ("" if r.meets is None else "; meets every target with confidence"
-               if r.meets else "; does NOT meet every target")]
+               if r.meets else "; does NOT meet every target"),
+            *(f"service level at {p}: {t['describes']}" for p, t in r.targets.items()
+              if "describes" in t)]

@@ -32,6 +32,17 @@ def simulation_waits_figure(sim, scenario) -> Any | None:
     return waits_figure(waits, scenario.time_unit, targets)
 
 
+def service_waits(sim, scenario) -> Any | None:
+    """The served jobs' waits and the abandoners' times apart, per place with a service target
+    (None without targets or recorded waits); see :mod:`compare.present.wait_figure`."""
+    if not scenario.targets.service or not sim.runs or sim.runs[0].waits is None:
+        return None
+    from .wait_figure import pooled_outcome_waits, service_waits_figure
+
+    waits = pooled_outcome_waits(sim.runs, scenario.targets.service)
+    return service_waits_figure(waits, scenario.targets.service, scenario.time_unit)
+
+
 def comparison_report(directory, comparison, scenario, *, caution: str,
                       summary: list[str]) -> ReportFiles:
     sim, fl = comparison.simulation, comparison.fluid
@@ -40,6 +51,9 @@ def comparison_report(directory, comparison, scenario, *, caution: str,
     waits = simulation_waits_figure(sim, scenario)
     if waits is not None:
         figures["waits"] = waits
+    served = service_waits(sim, scenario)
+    if served is not None:
+        figures["service_waits"] = served
     tables = {
         "flags": comparison.flags_frame(),
         "transition_gaps": comparison.gaps.transitions,
@@ -66,6 +80,9 @@ def station_report(directory, station, *, caution: str, summary: list[str]) -> R
     waits = simulation_waits_figure(station.simulation, station.scenario)
     if waits is not None:
         figures["waits"] = waits
+    served = service_waits(station.simulation, station.scenario)
+    if served is not None:
+        figures["service_waits"] = served
     return write_report(directory, title="fluidgap station: self-check against the classical "
                         "formulas", summary_lines=summary, tables={"checks": station.to_frame()},
                         figures=figures, json_doc=station.to_json(), caution=caution)

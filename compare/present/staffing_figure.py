@@ -111,8 +111,8 @@ def _draw_target(ax, name: str, result: StaffingResult, x: np.ndarray) -> list:
     else:
         line, label = target["goal"], f"goal {target['goal']:g}"
         ax.set_ylabel("service level")
-        ax.set_title(f"{name}: share served within {target['within']:g} {result.time_unit} "
-                     "(mean and 95 % interval)", pad=6)
+        what = target.get("describes", f"within {target['within']:g} {result.time_unit}")
+        ax.set_title(f"{name}: service level {what}\n(mean and 95 % interval)", pad=6)
     ax.axhline(line, color=TARGET, ls="--", lw=1.2, zorder=2)
     ax.annotate(label, (1.0, line), xycoords=("axes fraction", "data"), xytext=(-4, 3),
                 textcoords="offset points", ha="right", va="bottom", fontsize=8, color=TARGET)

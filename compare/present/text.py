@@ -7,6 +7,7 @@ from typing import Any
 from fluid.scenario import Scenario
 
 from ..study.gap import GAP_CONVENTION, gap_text
+from .conventions import service_level_lines
 from .tables import fmt, fmt_estimate, format_table
 
 #: Printed with every result and in every report (staffing can affect people's safety).
@@ -98,7 +99,8 @@ def inspect_text(s: Scenario, invariants: list[dict], uncovered: list[str],
         inv_lines.append("warning: " + _leak_line(pool, places))
     parts.append("\n".join(inv_lines))
     if s.targets.service or s.targets.abandonment_max is not None:
-        rows = [[p, f"{fmt(t.goal * 100, 3)} % within {fmt(t.within)}"] for p, t in s.targets.service.items()]
+        rows = [[p, f"{fmt(t.goal * 100, 3)} % {t.describe(s.time_unit)}"]
+                for p, t in s.targets.service.items()]
         if s.targets.abandonment_max is not None:
             rows.append(["abandonment", f"at most {fmt(s.targets.abandonment_max * 100, 3)} %"])
         parts.append(format_table(["target", "goal"], rows))
@@ -145,7 +147,7 @@ def inspect_json(s: Scenario, invariants: list[dict], uncovered: list[str],
         "agent_leaks": {pool: {"places": list(places), "message": _leak_line(pool, places)}
                         for pool, places in (leaks or {}).items()},
         "targets": {
-            "service": {p: {"within": t.within, "goal": t.goal} for p, t in s.targets.service.items()},
+            "service": {p: t.to_json(s.time_unit) for p, t in s.targets.service.items()},
             "abandonment_max": s.targets.abandonment_max,
         },
     }
@@ -222,6 +224,12 @@ def simulation_text(s: Scenario, r) -> str:
     parts.append(format_table(
         ["waiting place", f"wait ({unit})", "queue", "abandoned share", "served within target"],
         rows))
+    if s.targets.service:
+        lines = service_level_lines(s.targets.service, unit)
+        if r.intervals is not None:
+            lines.append("per interval, service level, abandonment and wait count each job in "
+                         "the interval it arrived in")
+        parts.append("\n".join(lines))
     spread = [m for p in waiting_places(s)[:1] for m in r.places[p] if m.startswith("wait_p")]
     if spread:
         # (the waits of every job that left, taken or abandoning, as `wait` above; the ASA counts
@@ -338,6 +346,7 @@ def comparison_summary(s: Scenario, c) -> list[str]:
         ab = t.loc["abandonment"]
         lines.append(f"abandonment: fluid {_pct(ab['fluid'])}, simulated {_pct(ab['mean'])} "
                      f"[{_pct(ab['low'])}, {_pct(ab['high'])}]")
+    lines += service_level_lines(s.targets.service, s.time_unit)
     kinds = sorted({f.kind for f in c.flags})
     if not getattr(c, "verdicts", True):
         lines.append("flags: not judged (no interval from one replication)")
@@ -423,6 +432,9 @@ def station_text(r) -> str:
                            + ("; not judged: 95 %]" if r.informative else "]"),
                            "agrees",
                            "source"], rows)]
+    if any(c.metric == "service_level" for c in (*r.checks, *r.informative)):
+        parts.append("\n".join(service_level_lines(r.scenario.targets.service,
+                                                   r.scenario.time_unit)))
     if r.notes:
         parts.append("\n".join(f"note: {n}" for n in r.notes))
     return "\n\n".join(parts)

@@ -73,9 +73,10 @@ class Comparison:
         sign convention of every gap, :data:`compare.study.gap.GAP_CONVENTION`), and
         ``"verdicts"`` (False: fewer than two replications, flags not judged), ``"rate_uncertainty"``
         (the day factors and the targets judged without them, see
-        :meth:`compare.study.rate_flags.RateCheck.to_json`) and ``"per_interval_day"`` (the wide
+        :meth:`compare.study.rate_flags.RateCheck.to_json`), ``"per_interval_day"`` (the wide
         per-interval table of :mod:`compare.study.day_table`, one record per interval, or
-        null); nan and inf become null."""
+        null) and ``"targets"`` (the service targets and what each service level measures, as
+        the simulation's); nan and inf become null."""
         transient = None
         if self.transient is not None:
             transient = json_ready(self.transient.to_dict("records"))
@@ -85,6 +86,7 @@ class Comparison:
             "settings": self.settings.to_json(),
             "fluid": self.fluid.to_dict(),
             "simulation": self.simulation.to_json(),
+            "targets": dict(self.simulation.targets),
             "gaps": self.gaps.to_json(),
             "gap_convention": GAP_CONVENTION,
             "flags": [f.to_json() for f in self.flags],

@@ -299,7 +299,7 @@ def find_flags(scenario: Scenario, fluid: FluidResult, sim: SimulationResult,
         if est is not None and est.high < target.goal:
             pool = _busiest(serving_pools(scenario, p), fluid, sim)
             flags.append(Flag("target_missed", p, (
-                f"service level {_est(est)} within {_f(target.within)} {unit} is below the goal "
+                f"service level {_est(est)} ({target.describe(unit)}) is below the goal "
                 f"{_pct(target.goal)}; " + _advice(pool, fluid, sim))))
     if scenario.targets.abandonment_max is not None:
         est = gaps.estimates.get("abandonment") or sim.overall_abandonment()

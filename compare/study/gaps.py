@@ -27,7 +27,7 @@ one place at a time as in Whitt (2006) at the fluid rates, or from the fluid dyn
 abandonment (time-varying nets over the statistics window, nets whose abandoned jobs come back,
 nets with priorities); the fluid model is named in ``FluidResult.model``. ``served_within`` is
 the share of the jobs becoming available that are taken within the target, abandoners counted
-against.
+by the target's convention (``convention`` in the JSON says which, in words).
 """
 
 from __future__ import annotations
@@ -182,7 +182,8 @@ class Gaps:
         transitions = {r.transition: _row_json(r.fluid, est(r))
                        for r in self.transitions.itertuples(index=False)}
         places: dict = {p: {k: v for k, v in fp.to_json().items()
-                            if k in ("state", "inflow", "capacity", "wait_served", "within")}
+                            if k in ("state", "inflow", "capacity", "wait_served", "within")
+                            or (k == "convention" and v is not None)}
                         for p, fp in self.fluid_places.items()}
         for r in self.places.itertuples(index=False):
             places.setdefault(r.place, {})[r.metric] = _row_json(r.fluid, est(r))

@@ -190,7 +190,7 @@ def meets_targets(scenario: Scenario, estimates: Mapping[str, Estimate]) -> bool
 
 
 def _targets_json(scenario: Scenario) -> dict[str, dict]:
-    out = {p: {"within": t.within, "goal": t.goal} for p, t in scenario.targets.service.items()}
+    out = {p: t.to_json(scenario.time_unit) for p, t in scenario.targets.service.items()}
     if scenario.targets.abandonment_max is not None:
         out[ABANDONMENT] = {"max": scenario.targets.abandonment_max}
     return out

@@ -181,7 +181,7 @@ class StationResult:
         "class_rates", "within", "time_unit", "model", "checks": [...], "informative": [...],
         "notes": [...], "all_agree", "level" (each judged check's interval), "family_wise_level"
         (all judged checks together, Bonferroni), "replications", "horizon", "warmup",
-        "seed"}``."""
+        "seed", "targets" (what the service level measures: the simulation's targets)}``."""
         sim = self.simulation
         return {
             "servers": self.servers, "arrival_rate": self.arrival_rate,
@@ -196,6 +196,7 @@ class StationResult:
             "replications": sim.replications, "horizon": sim.horizon, "warmup": sim.warmup,
             "seed": sim.seed,
             "simulate_overrides": None if self.overrides is None else dict(self.overrides),
+            "targets": dict(sim.targets),
         }
 
 

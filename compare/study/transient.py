@@ -13,7 +13,8 @@ the simulation's per-interval table (``desim.replicate(..., interval=STEP)``), m
 * ``queue`` (per waiting place): time average over the interval of the fluid jobs available and
   not yet taken (trapezoid rule on the grid, whose counters are piecewise linear);
 * ``service_level`` (per place with a target): share of the fluid that becomes available in the
-  interval and is taken within the target's ``within``, abandoners counted against: by cohorts
+  interval and is taken within the target's ``within``, abandoners counted by the target's
+  convention (as the simulation counts them, by arrival interval): by cohorts
   of the age-structured queue at an impatient place (:func:`fluid.places.cohort_service_level`),
   else :func:`fluid.service_level.fifo_service_level`. Jobs leave a place first-in first-out,
   so a fluid particle that becomes available when the availability curve A(t) reaches level v
@@ -72,6 +73,56 @@ def _at(sol: CounterSolution, curve: np.ndarray, t: float) -> float:
     return float(np.interp(t, sol.times, curve))
 
 
+def _scheduled_staff(scenario: Scenario, pool: str, start: float, end: float) -> float:
+    """Agent-time scheduled in ``pool`` over ``[start, end]``, exactly (a schedule is a step
+    function: each step's staff times its overlap with the interval)."""
+    p = scenario.pools[pool]
+    if p.schedule is None:
+        return float(p.staff) * (end - start)
+    step = p.schedule.step
+    cuts = [start, *(k * step for k in range(int(start // step) + 1, int(end // step) + 1)
+                     if start < k * step < end), end]
+    return float(sum(p.staff_at((a + b) / 2) * (b - a) for a, b in zip(cuts, cuts[1:])))
+
+
+def _pool_value(scenario: Scenario, sol: CounterSolution, metric: str, pool: str,
+                start: float, end: float) -> float:
+    """Fluid ``staff`` (time-average agents on duty: the scheduled staff, exact, plus the busy
+    agents a cut still waits for, the pool's marking below 0) or ``busy`` (busy agent-time,
+    scheduled staff less the idle marking, over on-duty agent-time) of ``pool``."""
+    if end <= start:
+        return math.nan
+    scheduled = _scheduled_staff(scenario, pool, start, end)
+    idle = sol.markings[pool]
+    owed = _average(sol, np.maximum(0.0, -idle), start, end) * (end - start)
+    duty = scheduled + owed
+    if metric == "staff":
+        return duty / (end - start)
+    # busy = staff − idle on the grid: both jump by the same amount where the staff changes, so
+    # the busy curve has no jump there and the trapezoid rule follows it exactly
+    p = scenario.pools[pool]
+    if p.schedule is None:
+        staff = np.full(sol.times.shape, float(p.staff))
+    else:
+        levels = np.asarray(p.schedule.staff, dtype=float)
+        staff = levels[np.clip((sol.times // p.schedule.step).astype(np.int64), 0,
+                               len(levels) - 1)]
+    busy = _average(sol, staff - idle, start, end) * (end - start)
+    return busy / duty if duty > 0 else math.nan
+
+
+def _average(sol: CounterSolution, curve: np.ndarray, start: float, end: float) -> float:
+    """Time average of a grid curve over ``[start, end]`` (trapezoid rule, linear between grid
+    points)."""
+    if end <= start:
+        return math.nan
+    t = sol.times
+    inside = (t > start) & (t < end)
+    ts = np.concatenate([[start], t[inside], [end]])
+    ys = np.concatenate([[_at(sol, curve, start)], curve[inside], [_at(sol, curve, end)]])
+    return float(np.trapezoid(ys, ts) / (end - start))
+
+
 def fluid_interval_value(scenario: Scenario, sol: CounterSolution, metric: str, name: str,
                          start: float, end: float) -> float:
     """The fluid figure of one row of the simulation's per-interval table (nan for a metric the
@@ -88,10 +139,13 @@ def fluid_interval_value(scenario: Scenario, sol: CounterSolution, metric: str, 
                          if scenario.places[p].abandon_to is None))
     if metric == "queue" and name in sol.waiting:
         return queue_average(sol, name, start, end)
+    if metric in ("staff", "busy") and name in scenario.pools and name in sol.markings:
+        return _pool_value(scenario, sol, metric, name, start, end)
     if metric == "service_level" and name in scenario.targets.service:
-        within = scenario.targets.service[name].within
+        target = scenario.targets.service[name]
+        within = target.within
         if name in sol.head_wait:
-            return cohort_service_level(scenario, sol, name, within, start, end)
+            return cohort_service_level(scenario, sol, name, within, start, end, target)
         return fifo_service_level(scenario, sol, name, within, start, end)
     return math.nan
 

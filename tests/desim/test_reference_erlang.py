@@ -11,7 +11,7 @@ interval). Several checks share the suite, so the per-check level is Bonferroni-
 the three modules that use this rule make at most ``FAMILY_CHECKS`` = 64 interval checks,
 default and slow runs together (at the time of writing 36 here, 8 in test_reference_priority.py
 and 8 in test_configs.py, one per place where tokens wait; 3 more in test_wait_percentiles.py,
-which uses this rule: 55), and each check uses level
+which uses this rule; 2 more here for the abandoner conventions: 57), and each check uses level
 1 − 0.05/64 ≈ 99.92 %, so the chance that any check of the whole family fails by chance alone is
 at most 5 % (Bonferroni; raise FAMILY_CHECKS when adding checks beyond it). The interval must
 also be narrow, half-width below ``NARROW`` = 10 % of the reference (of min(p, 1 − p) for a
@@ -64,11 +64,14 @@ def agrees(values, reference: float, what: str, source: str, *, probability: boo
 
 
 def station(servers: int, rate: float, hold: str, *, patience: str | None = None,
-            within: float | None = None, unit: str = "min"):
+            within: float | None = None, unit: str = "min", abandoned: str | None = None):
     """One queue served by one pool: Poisson arrivals at ``rate`` per time unit, ``hold`` a
-    distribution in YAML, optional ``patience`` (YAML) and service target ``within``."""
+    distribution in YAML, optional ``patience`` (YAML) and service target ``within`` (with the
+    abandoner convention ``abandoned``, YAML, when given)."""
     queue = f"{{patience: {patience}}}" if patience is not None else "{}"
-    target = f"targets:\n  queue: {{within: {within}, goal: 0.8}}\n" if within is not None else ""
+    convention = f", abandoned: {abandoned}" if abandoned is not None else ""
+    target = (f"targets:\n  queue: {{within: {within}, goal: 0.8{convention}}}\n"
+              if within is not None else "")
     text = textwrap.dedent(f"""\
         name: reference station (invented)
         time_unit: {unit}
@@ -202,6 +205,51 @@ def test_erlang_a_overloaded():
     # Offered load 12 erlangs on 10 agents (ρ = 1.2), mean patience 2 min: a steady state exists
     # only thanks to abandonment.
     erlang_a_checks(10, 12.0, 1.0, 2.0, 0.5, reps=20, horizon=1_500, warmup=50, seed=202)
+
+
+def test_erlang_a_service_level_conventions():
+    # The overloaded station above (N = 10, λ = 12, μ = 1, mean patience 2 min, t = 0.5 min),
+    # simulated with common random numbers under two abandoner conventions, each with a closed
+    # form (Erlang A: Palm; Garnett, Mandelbaum and Reiman 2002; Mandelbaum and Zeltyn 2005):
+    # abandoners counted against, P(served and W <= t); abandoners excluded, the share of the
+    # served callers answered within t, P(served and W <= t | served) = P(served and W <= t) /
+    # (1 − P(Ab)) (conditional probability; derived here, not a published figure). 2 checks.
+    ref = erlang_a_queue(10, 12.0, 1.0, 2.0)
+    source = ("Erlang A (Palm; Garnett, Mandelbaum and Reiman 2002; Mandelbaum and Zeltyn 2005), "
+              "references.md")
+    runs = {}
+    for convention in ("against", "excluded"):
+        s = station(10, 12.0, "{dist: exponential, mean: 1.0}",
+                    patience="{dist: exponential, mean: 2.0}", within=0.5, abandoned=convention)
+        assert s.targets.service["queue"].abandoned == convention
+        runs[convention] = simulate(s, reps=20, horizon=1_500, warmup=50, seed=202,
+                                    record_waits=False)
+    against = ref.service_level(0.5)
+    agrees(raw(runs["against"], "served_within"), against, "P(served and W <= 0.5)", source,
+           probability=True)
+    agrees(raw(runs["excluded"], "served_within"), against / (1 - ref.p_abandon),
+           "P(served and W <= 0.5 | served)", source + ", conditioned on being served",
+           probability=True)
+    # the same runs (common random numbers): every other figure is identical
+    assert np.array_equal(raw(runs["against"], "wait"), raw(runs["excluded"], "wait"))
+
+
+def test_excluded_within_between_its_limits():
+    # Exact identities, per replication, on the same station (continuous patience, so no
+    # caller abandons after a wait of exactly 0): excluded_within 0 leaves no abandoner out,
+    # the "against" figure; a threshold beyond every wait leaves all out, the "excluded" one;
+    # one in between lies between the two.
+    values = {}
+    for key, convention in (("against", "against"), ("excluded", "excluded"),
+                            ("zero", "{excluded_within: 0}"), ("all", "{excluded_within: 1e9}"),
+                            ("half", "{excluded_within: 0.5}")):
+        s = station(10, 12.0, "{dist: exponential, mean: 1.0}",
+                    patience="{dist: exponential, mean: 2.0}", within=0.5, abandoned=convention)
+        values[key] = raw(desim.replicate(s, reps=3, horizon=200, warmup=10, seed=5, workers=1),
+                          "served_within")
+    assert np.array_equal(values["zero"], values["against"])
+    assert np.array_equal(values["all"], values["excluded"])
+    assert np.all(values["against"] < values["half"]) and np.all(values["half"] < values["excluded"])
 
 
 @pytest.mark.slow

@@ -308,8 +308,10 @@ def test_result_structure_and_json_contract(net):
     assert doc["places"]["queue"]["wait"]["n"] == 3
     frame = res.to_frame()
     assert list(frame.columns) == ["kind", "name", "metric", "mean", "low", "high", "n"]
+    # (the metrics of the per-interval table pinned in the session's CONTRACT.md)
     assert set(res.intervals["metric"]) == {"arrivals", "completed", "abandoned",
-                                            "service_level", "queue"}
+                                            "service_level", "abandonment", "wait", "queue",
+                                            "busy", "staff"}
     assert res.intervals["interval"].max() == 3
     assert isinstance(res.places["queue"]["wait"], desim.Estimate)
     assert res.sources["calls"]["arrivals"].mean > 0

@@ -110,6 +110,8 @@ CASES = [
     # --- numbers no field can mean ----------------------------------------------------------
     case("400-digit rate", "fluid huge-int-rate.yaml", "sources.calls.rate", "400 digits"),
     case("400-digit staff", "fluid huge-int-staff.yaml", "pools.agents", "at most"),
+    case("400-digit excluded_within", "inspect target-excluded-within-huge.yaml",
+         "targets.queue.abandoned.excluded_within", "at most"),
     case("400-digit horizon", "simulate huge-int-horizon.yaml", "run.horizon"),
     case("5000-digit hold", "inspect giant-int-hold.yaml", "places.talk.hold", "5000 digits"),
     case("400-digit seed", "simulate huge-int-seed.yaml", "run.seed"),
