@@ -18,8 +18,8 @@ from typing import Any
 
 from .errors import FieldError
 
-__all__ = ["MINUTES_PER_UNIT", "axis_label", "clock_label", "clock_range", "minutes_per_unit",
-           "parse_start"]
+__all__ = ["MINUTES_PER_UNIT", "axis_label", "clock_label", "clock_range", "has_clock",
+           "minutes_per_unit", "parse_start"]
 
 #: Minutes in one time unit, for the units the clock converts (their usual spellings).
 MINUTES_PER_UNIT = {
@@ -68,6 +68,12 @@ def _converts(scenario) -> float | None:
     start = getattr(scenario.run, "start", None)
     per = minutes_per_unit(scenario.time_unit)
     return None if start is None or per is None else per
+
+
+def has_clock(scenario) -> bool:
+    """True when times of ``scenario`` are shown as clock times (``run.start`` is set and its
+    time unit converts to minutes)."""
+    return _converts(scenario) is not None
 
 
 def clock_label(scenario, t: float) -> str:

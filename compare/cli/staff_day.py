@@ -90,7 +90,7 @@ def staff_day(args, s) -> Outcome:
                              f"write ({exc.strerror or exc})") from None
         text += f"\n\nscenario with the plan written to {args.write_scenario}"
         doc["written_scenario"] = str(args.write_scenario)
-    figure = functools.cache(lambda: shift_figure(result))
+    figure = functools.cache(lambda: shift_figure(result, scenario=s))
     title = f"fluidgap staff{' --shifts' if args.shifts else ''}: {s.name}"
     return finish(args, text, doc, figure=figure,
                   report=lambda d: day_report(d, result, figure(), json_doc=doc,

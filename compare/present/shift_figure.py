@@ -6,7 +6,8 @@ the service achieved in each interval, mean and 95 % interval over replications,
 Works for a :class:`~compare.study.shift_plan.ShiftPlan` and for a bare
 :class:`~compare.study.interval_staffing.IntervalStaffing` (no plan: the required staff and its
 achieved service). Built without pyplot, in the colours of :mod:`compare.present.figures`; each
-series also has its own line style or marker. Times in the scenario's time unit from 0.
+series also has its own line style or marker. Times in the scenario's time unit from 0, shown
+as clock times when the scenario has ``run.start``.
 """
 
 from __future__ import annotations
@@ -16,6 +17,9 @@ import math
 import matplotlib as mpl
 import numpy as np
 from matplotlib.figure import Figure
+from matplotlib.ticker import FixedLocator, FuncFormatter
+
+from fluid.clock import axis_label, clock_label, has_clock, minutes_per_unit
 
 from ..study.interval_staffing import ABANDONMENT, verdict
 from .figures import _STYLE, REFERENCE, SERIES, TARGET
@@ -23,13 +27,39 @@ from .figures import _STYLE, REFERENCE, SERIES, TARGET
 __all__ = ["shift_figure"]
 
 
+def _panel_title(target: str, spec: dict, unit: str, scenario) -> str:
+    if target == ABANDONMENT:
+        return "abandonment share (callers by arrival interval)"
+    served = scenario.targets.service.get(target) if scenario is not None else None
+    said = served.describe(unit) if served is not None else f"within {spec['within']:g} {unit}"
+    return f"service level at {target} ({said})"
+
+
+#: Spacings of clock ticks tried, in minutes: the first that gives at most 12 ticks is used.
+_TICK_MINUTES = (15, 30, 60, 120, 180, 240, 360, 720, 1440)
+
+
+def _clock_ticks(scenario, step: float, end: float) -> np.ndarray:
+    """Tick positions over [0, end] (scenario time unit) that fall on whole clock quarters,
+    halves or hours (08:00, 09:00, ... whatever ``run.start``), at most 12 of them."""
+    per = minutes_per_unit(scenario.time_unit)
+    start = scenario.run.start  # minutes after midnight
+    for minutes in _TICK_MINUTES:
+        if minutes / per >= step * (1 - 1e-9) and end * per / minutes <= 12:
+            break
+    first = math.ceil(start / minutes - 1e-9) * minutes  # the first whole tick, clock minutes
+    return (np.arange(first, start + end * per + 1e-9, minutes) - start) / per
+
+
 def _steps(values, step):
     x = np.arange(len(values) + 1) * step
     return x, np.r_[values, values[-1]] if len(values) else np.array([0])
 
 
-def shift_figure(result, *, title: str | None = None) -> Figure:
-    """The figure of the module docstring for a shift plan or a per-interval staffing."""
+def shift_figure(result, *, title: str | None = None, scenario=None) -> Figure:
+    """The figure of the module docstring for a shift plan or a per-interval staffing.
+    ``scenario``: the scenario staffed, for clock times on the time axis (``run.start``) and
+    the service-level conventions in the panel titles; without it, times from 0."""
     plan = result if hasattr(result, "requirement") else None
     req = plan.requirement if plan is not None else result
     estimates = plan.estimates if plan is not None else req.estimates
@@ -74,15 +104,24 @@ def shift_figure(result, *, title: str | None = None) -> Figure:
             level = spec["goal"] if "goal" in spec else spec["max"]
             ax.axhline(level, color=TARGET, lw=1.2, ls="--",
                        label=("goal" if "goal" in spec else "maximum") + f" {level:g}")
-            what = ("abandonment share (by arrival interval)" if t == ABANDONMENT else
-                    f"service level at {t} (within {spec['within']:g} {unit})")
-            ax.set_title(what, pad=4)
+            ax.set_title(_panel_title(t, spec, unit, scenario), pad=4)
             ax.set_ylabel("share")
-            lows = [m - d for m, d in zip(means, lo) if math.isfinite(m)]
-            bottom = min([level, *lows]) if lows else level
-            ax.set_ylim(max(0.0, bottom - 0.05), 1.02)
+            if t == ABANDONMENT:  # (a share near 0: scale to the maximum and the highs)
+                highs = [m + d for m, d in zip(means, hi) if math.isfinite(m)]
+                ax.set_ylim(0.0, min(1.02, 1.25 * max([level, *highs])))
+            else:
+                lows = [m - d for m, d in zip(means, lo) if math.isfinite(m)]
+                bottom = min([level, *lows]) if lows else level
+                ax.set_ylim(max(0.0, bottom - 0.05), 1.02)
             ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=7, frameon=False)
-        axes[-1].set_xlabel(f"time ({unit} from the start of the run)")
+        if scenario is not None and has_clock(scenario):
+            end = step * (max(req.judged) + 1 if req.judged else 1)
+            axes[-1].xaxis.set_major_locator(FixedLocator(_clock_ticks(scenario, step, end)))
+            axes[-1].xaxis.set_major_formatter(
+                FuncFormatter(lambda t, _pos: clock_label(scenario, float(t))))
+            axes[-1].set_xlabel(axis_label(scenario))
+        else:
+            axes[-1].set_xlabel(f"time ({unit} from the start of the run)")
         fig.suptitle(title or (f"{req.scenario_name}: "
                                + ("shift plan" if plan is not None else "staff per interval")))
     return fig

@@ -8,6 +8,7 @@ from __future__ import annotations
 import yaml
 
 from ..study.interval_staffing import verdict
+from .conventions import service_level_lines
 from .tables import fmt, fmt_estimate, format_table
 
 __all__ = ["clock", "interval_text", "interval_summary", "shift_plan_text", "shift_summary",
@@ -16,11 +17,22 @@ __all__ = ["clock", "interval_text", "interval_summary", "shift_plan_text", "shi
 
 def clock(scenario, t: float) -> str:
     """``t`` as a clock time when the scenario has one (``fluid.clock``), else the number."""
-    try:
-        from fluid.clock import clock_label
-    except ImportError:  # (the clock arrives with run.start; older scenarios count from 0)
-        return f"{t:g}"
+    from fluid.clock import clock_label
+
     return clock_label(scenario, t)
+
+
+def _conventions(s) -> list[str]:
+    """What each service level in the tables measures (one paragraph), or nothing."""
+    lines = service_level_lines(s.targets.service, s.time_unit)
+    return ["\n".join(lines)] if lines else []
+
+
+def _breaks(s, shift: str, start: float) -> str:
+    """The off-duty spans inside one shift worked (clock times), "-" for none."""
+    spans = s.shifts[shift].on_duty(start)
+    gaps = [(a[1], b[0]) for a, b in zip(spans, spans[1:])]
+    return ", ".join(f"{clock(s, lo)}-{clock(s, hi)}" for lo, hi in gaps) or "-"
 
 
 def _shown(targets, estimates, judged) -> dict:
@@ -72,7 +84,7 @@ def interval_text(s, req) -> str:
              *[req.start[p][i] for p in pools], *[req.staff[p][i] for p in pools],
              *_achieved(shown, req.estimates, i)] for i in req.judged]
     parts = [f"{req.scenario_name}: staff required per interval", _run_line(req),
-             format_table(heads, rows),
+             *_conventions(s), format_table(heads, rows),
              "every interval meets its targets with confidence" if req.meets
              else "some interval does NOT meet its targets (marked MISS)"]
     if req.notes:
@@ -117,16 +129,17 @@ def shift_plan_text(s, plan) -> str:
     rows = [[f"{clock(s, i * req.step)}-{clock(s, (i + 1) * req.step)}",
              *[req.staff[p][i] for p in pools], *[plan.staff[p][i] for p in pools],
              *_achieved(shown, plan.estimates, i)] for i in req.judged]
-    shifts = [[r["shift"], r["pool"], clock(s, r["start"]), clock(s, r["end"]), r["agents"],
-               fmt(r["cost"])] for r in plan.shift_rows()]
+    shifts = [[r["shift"], r["pool"], clock(s, r["start"]), clock(s, r["end"]),
+               _breaks(s, r["shift"], r["start"]), r["agents"], fmt(r["cost"])]
+              for r in plan.shift_rows()]
     verdict_line = ("the shift plan meets every interval's targets with confidence"
                     if plan.meets else "the shift plan does NOT meet every interval's targets")
     flat_line = ("the flat plan meets every interval with confidence" if plan.flat_meets
                  else "the flat plan does NOT meet every interval (simulated)")
-    parts = [f"{req.scenario_name}: shift plan", _run_line(req),
+    parts = [f"{req.scenario_name}: shift plan", _run_line(req), *_conventions(s),
              format_table(heads, rows, title="staff per interval (achieved: the shift plan, "
                           f"{_times(plan.checks, 'simulation')} with the same seed):"),
-             format_table(["shift", "pool", "start", "end", "agents", "cost"], shifts,
+             format_table(["shift", "pool", "start", "end", "off duty", "agents", "cost"], shifts,
                           title="shifts worked:"),
              _cost_line(plan), verdict_line + "; " + flat_line]
     if plan.repairs:
