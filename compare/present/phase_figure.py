@@ -185,7 +185,8 @@ def phase_figure(diagram: PhaseDiagram, *, overlay: pd.DataFrame | None = None,
             handles += _draw_gaps(axes[0], overlay)
             if with_sl:
                 handles += _draw_service_levels(axes[1], overlay)
-                axes[1].set_title("simulated targets (worst service level written)", pad=10)
+                axes[1].set_title("simulated targets (worst service level written)"
+                                  + _conventions(overlay), pad=10)
         axes[0].set_title(f"{diagram.of_label or 'rate'} per {diagram.time_unit}"
                           + (" with simulated gaps" if overlay is not None else ""), pad=10)
         fig.legend(handles=handles, loc="outside lower center", ncols=2 * ncols, frameon=False)
@@ -194,6 +195,17 @@ def phase_figure(diagram: PhaseDiagram, *, overlay: pd.DataFrame | None = None,
         # long scenario names wrap rather than run off the figure
         fig.suptitle(textwrap.fill(title or f"{diagram.scenario_name}: {method}", width=70))
     return fig
+
+
+def _conventions(overlay: pd.DataFrame) -> str:
+    """What each simulated service level of ``overlay`` measures, one line per target place
+    (each line starting with a newline; empty for an overlay without them)."""
+    out = ""
+    for c in overlay.columns:
+        if c.endswith("_sl_convention") and len(overlay):
+            text = textwrap.fill(f"{c[: -len('_sl_convention')]}: {overlay[c].iloc[0]}", 60)
+            out += "\n" + text
+    return out
 
 
 def _draw_diagram(ax, diagram: PhaseDiagram) -> list:
@@ -474,7 +486,8 @@ def _draw_profile_service_levels(ax, overlay: pd.DataFrame) -> list:
                               label=f"{place}: simulated service level (goal dashed)"))
     ax.set_ylim(0, 1.05)
     ax.set_ylabel("share served within the target time")
-    ax.set_title("simulated service level per target (mean and 95 % interval)", pad=10)
+    ax.set_title("simulated service level per target (mean and 95 % interval)"
+                 + _conventions(overlay), pad=10)
     return handles
 
 

@@ -96,7 +96,9 @@ def phase_overlay(scenario: Scenario, diagram: PhaseDiagram,
                 est, fl = estimates[place], fluid_sl[place]
                 row |= {f"{place}_sl_fluid": fl, f"{place}_sl_mean": est.mean,
                         f"{place}_sl_low": est.low, f"{place}_sl_high": est.high,
-                        f"{place}_sl_goal": target.goal}
+                        f"{place}_sl_goal": target.goal,
+                        # (what the service level measures, for every table and figure of it)
+                        f"{place}_sl_convention": target.describe(scenario.time_unit)}
                 sl_opt |= bool(math.isfinite(fl) and math.isfinite(est.high) and fl > est.high)
             ab = estimates.get(ABANDONMENT) or sim.overall_abandonment()
             met = meets_targets(scenario, estimates) and not sim.unstable_replications

@@ -279,6 +279,8 @@ def test_phase_overlay_and_figure():
         assert row.optimistic == (row.fluid_rate > row.sim_high)
         assert row.n == 6
         assert row.front_queue_sl_goal == 0.8
+        # issue 13 item 1: the overlay says what its service level measures
+        assert row.front_queue_sl_convention.endswith("abandoners counted against")
     # at (21, 8) nobody limits (21/3 = 7 and 8 per minute both above λ = 5): the simulated
     # output interval holds the inflow, and the fluid queue is empty (fluid service level 1)
     roomy = table[(table.a == 21) & (table.b == 8)].iloc[0]
