@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 from fluid.scenario import Scenario
@@ -234,13 +235,24 @@ def simulation_text(s: Scenario, r) -> str:
     if spread:
         # (the waits of every job that left, taken or abandoning, as `wait` above; the ASA counts
         # the jobs taken only)
+        rows = []
+        for p in waiting_places(s):
+            v = r.places[p]
+            rows.append([p, "all who left", _est(v["wait"], n),
+                         *(_est(v[m], n) for m in spread)])
+            # (the served jobs' waits and the abandoners' times apart: a service level counts
+            # them by its convention, so neither is hidden in the other)
+            for who, prefix, mean in (("taken", "served_", "asa"), ("abandoning", "abandoned_",
+                                                                     None)):
+                if any(f"{prefix}{m}" in v for m in spread):
+                    rows.append(["", who, _est(v[mean], n) if mean else "",
+                                 *(_est(v.get(f"{prefix}{m}", math.nan), n) for m in spread)])
         parts.append(format_table(
-            ["waiting place", f"ASA ({unit})", *(m.removeprefix("wait_") for m in spread)],
-            [[p, _est(r.places[p]["asa"], n), *(_est(r.places[p][m], n) for m in spread)]
-             for p in waiting_places(s)],
-            title=f"waits ({unit}): ASA = average speed of answer (mean wait of the jobs taken);\n"
-                  "pNN = NN-th percentile of the waits of all jobs that left (taken or abandoning),"
-                  "\n  per replication, then averaged:"))
+            ["waiting place", "jobs", f"mean ({unit})", *(m.removeprefix("wait_") for m in spread)],
+            rows,
+            title=f"waits ({unit}): pNN = NN-th percentile of the waits, per replication, then "
+                  "averaged;\n  all who left (taken or abandoning), the jobs taken (their mean is "
+                  "the ASA, average speed of answer),\n  and the abandoners' times to abandon:"))
     if r.pools:
         parts.append(format_table(
             ["pool", "busy fraction"], [[p, _est(v["busy"], n)] for p, v in r.pools.items()]))

@@ -23,7 +23,9 @@ def run(capsys, *argv):
 def test_simulate_default_percentiles_in_text_and_json(capsys):
     code, out, _ = run(capsys, "simulate", SINGLE, "--reps", "2", "--horizon", "400", "--warmup", "20", "--quiet")
     assert code == 0
-    assert "ASA (min)" in out and "average speed of answer" in out
+    assert "the ASA, average speed of answer" in out and "mean (min)" in out
+    # the served jobs' waits and the abandoners' times are shown apart (issue 13, item 1)
+    assert all(who in out for who in ("all who left", "taken", "abandoning"))
     for q in ("p50", "p80", "p90", "p95"):
         assert q in out
     code, out, _ = run(capsys, "simulate", SINGLE, "--reps", "2", "--horizon", "400", "--warmup", "20", "--quiet",
