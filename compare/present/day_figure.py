@@ -59,7 +59,8 @@ def day_figure(scenario: Scenario, day, *, title: str | None = None) -> Figure:
         for ax, (place, goal) in zip(axes, panels):
             _band(ax, x, day, f"service_level.{place}", 0.0, 1.0)
             ax.axhline(goal, color=TARGET, ls=":", lw=1.6, label="goal")
-            ax.set_title(f"service level at {place} (goal {100 * goal:.3g} %)")
+            said = scenario.targets.service[place].describe(scenario.time_unit)
+            ax.set_title(f"service level at {place} (goal {100 * goal:.3g} %; {said})")
             ax.set_ylabel("share served within target")
             ax.set_ylim(-0.02, 1.02)
         if "abandonment" in day.columns:

@@ -23,6 +23,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, NullFormatter
 
 from ..study.gap import gap_text
+from .clock_axis import set_clock_axis
 
 __all__ = [
     "OKABE_ITO",
@@ -276,14 +277,16 @@ def transient_figure(table: pd.DataFrame, time_unit: str, *,
                      warmup: float | None = None, ncols: int = 2,
                      goals: Mapping[str, float] | None = None,
                      clock: Callable[[float], str] | None = None,
-                     xlabel: str | None = None) -> Figure:
+                     xlabel: str | None = None, scenario=None) -> Figure:
     """One panel per (metric, name) of a tidy table with columns interval, start, end, metric,
     name, fluid, mean, low, high, n (start and end in ``time_unit``): the fluid value of each
     interval as a solid orange step line, the simulated mean as a dashed blue step line inside
     its shaded 95 % band. A fluid column that is missing or nan for a panel is simply not drawn.
     Panel titles read "metric: name" (just the metric for whole-system rows, name "").
     ``goals``: place -> service-level goal, drawn as a horizontal line on its service-level
-    panel; ``clock``: time -> tick label (e.g. clock times), with ``xlabel`` the axis label."""
+    panel; ``clock``: time -> tick label (e.g. clock times), with ``xlabel`` the axis label;
+    ``scenario``: with ``run.start``, ticks on whole clock times instead
+    (:mod:`compare.present.clock_axis`)."""
     required = {"start", "end", "metric", "name", "mean", "low", "high"}
     missing = required - set(table.columns)
     if missing:
@@ -322,8 +325,11 @@ def transient_figure(table: pd.DataFrame, time_unit: str, *,
                 ax.axhline(goal, color=TARGET, ls=":", lw=1.4, label="goal")
             ax.set_title(f"{metric}: {name}" if name else metric)
             ax.set_xlabel(xlabel or f"time ({time_unit})")
-            if clock is not None:
-                ax.xaxis.set_major_formatter(FuncFormatter(lambda t, _pos: clock(t)))
+            # (narrow panels side by side: fewer ticks)
+            if not set_clock_axis(ax, scenario, float(np.min(end - start)), float(x[-1]),
+                                  max_ticks=12 // max(1, ncols)):
+                if clock is not None:
+                    ax.xaxis.set_major_formatter(FuncFormatter(lambda t, _pos: clock(t)))
             ax.set_ylabel(_metric_label(metric, time_unit))
             ax.set_xlim(x[0], x[-1])
         handles, labels = axes[0].get_legend_handles_labels()

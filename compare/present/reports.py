@@ -67,7 +67,8 @@ def comparison_report(directory, comparison, scenario, *, caution: str,
         goals = {p: t.goal for p, t in scenario.targets.service.items()}
         figures["transient"] = transient_figure(
             comparison.transient, scenario.time_unit, warmup=comparison.settings.warmup or None,
-            goals=goals, clock=lambda t: clock_label(scenario, t), xlabel=axis_label(scenario))
+            goals=goals, clock=lambda t: clock_label(scenario, t), xlabel=axis_label(scenario),
+            scenario=scenario)
         tables["per_interval_day"] = day  # one row per interval (compare.study.day_table)
         tables["per_interval"] = comparison.transient  # the tidy table, as before
     return write_report(directory, title=f"fluidgap compare: {scenario.name}",

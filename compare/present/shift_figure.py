@@ -17,11 +17,9 @@ import math
 import matplotlib as mpl
 import numpy as np
 from matplotlib.figure import Figure
-from matplotlib.ticker import FixedLocator, FuncFormatter
-
-from fluid.clock import axis_label, clock_label, has_clock, minutes_per_unit
 
 from ..study.interval_staffing import ABANDONMENT, verdict
+from .clock_axis import set_clock_axis
 from .figures import _STYLE, REFERENCE, SERIES, TARGET
 
 __all__ = ["shift_figure"]
@@ -33,22 +31,6 @@ def _panel_title(target: str, spec: dict, unit: str, scenario) -> str:
     served = scenario.targets.service.get(target) if scenario is not None else None
     said = served.describe(unit) if served is not None else f"within {spec['within']:g} {unit}"
     return f"service level at {target} ({said})"
-
-
-#: Spacings of clock ticks tried, in minutes: the first that gives at most 12 ticks is used.
-_TICK_MINUTES = (15, 30, 60, 120, 180, 240, 360, 720, 1440)
-
-
-def _clock_ticks(scenario, step: float, end: float) -> np.ndarray:
-    """Tick positions over [0, end] (scenario time unit) that fall on whole clock quarters,
-    halves or hours (08:00, 09:00, ... whatever ``run.start``), at most 12 of them."""
-    per = minutes_per_unit(scenario.time_unit)
-    start = scenario.run.start  # minutes after midnight
-    for minutes in _TICK_MINUTES:
-        if minutes / per >= step * (1 - 1e-9) and end * per / minutes <= 12:
-            break
-    first = math.ceil(start / minutes - 1e-9) * minutes  # the first whole tick, clock minutes
-    return (np.arange(first, start + end * per + 1e-9, minutes) - start) / per
 
 
 def _steps(values, step):
@@ -114,13 +96,8 @@ def shift_figure(result, *, title: str | None = None, scenario=None) -> Figure:
                 bottom = min([level, *lows]) if lows else level
                 ax.set_ylim(max(0.0, bottom - 0.05), 1.02)
             ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=7, frameon=False)
-        if scenario is not None and has_clock(scenario):
-            end = step * (max(req.judged) + 1 if req.judged else 1)
-            axes[-1].xaxis.set_major_locator(FixedLocator(_clock_ticks(scenario, step, end)))
-            axes[-1].xaxis.set_major_formatter(
-                FuncFormatter(lambda t, _pos: clock_label(scenario, float(t))))
-            axes[-1].set_xlabel(axis_label(scenario))
-        else:
+        end = step * (max(req.judged) + 1 if req.judged else 1)
+        if not set_clock_axis(axes[-1], scenario, step, end):
             axes[-1].set_xlabel(f"time ({unit} from the start of the run)")
         fig.suptitle(title or (f"{req.scenario_name}: "
                                + ("shift plan" if plan is not None else "staff per interval")))

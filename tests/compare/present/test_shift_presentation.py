@@ -12,7 +12,8 @@ matplotlib.use("Agg")
 import numpy as np  # noqa: E402
 import pytest  # noqa: E402
 
-from compare.present.shift_figure import _clock_ticks, shift_figure  # noqa: E402
+from compare.present.clock_axis import clock_ticks  # noqa: E402
+from compare.present.shift_figure import shift_figure  # noqa: E402
 from compare.present.shift_text import shift_plan_text  # noqa: E402
 from compare.study.shift_plan import shift_plan  # noqa: E402
 from fluid.loading import load_scenario_text  # noqa: E402
@@ -68,6 +69,6 @@ def test_the_figure_shows_clock_times_and_the_convention(planned):
 
 def test_clock_ticks_fall_on_whole_clock_times():
     s = load_scenario_text(DAY.replace('"08:30"', '"08:10"'), file="day.yaml")
-    ticks = _clock_ticks(s, 15.0, 600.0)
+    ticks = clock_ticks(s, 15.0, 600.0)
     # at most 12 ticks: every hour, on the hour (08:10 + 50 min = 09:00)
     assert np.allclose(ticks, np.arange(50.0, 601.0, 60.0))
