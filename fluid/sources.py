@@ -332,7 +332,7 @@ RANDOM_RATE_DISTS = ("gamma",)
 RANDOM_RATE_CV = 1.0
 #: The smallest positive cv (as for the distributions' cv: below it the gamma shape 1/cv²
 #: overflows).
-_SMALLEST_CV = 1e-6
+SMALLEST_RATE_CV = 1e-6
 
 
 @dataclass(frozen=True)
@@ -392,8 +392,8 @@ def parse_random_rate(value: Any, path: str) -> RandomRate:
     if cv > RANDOM_RATE_CV:
         raise FieldError(f"{path}.cv", f"must be at most {RANDOM_RATE_CV:g} (a day factor "
                          "with a larger cv is mostly near 0 with rare huge days)", value["cv"])
-    if 0 < cv < _SMALLEST_CV:
-        raise FieldError(f"{path}.cv", f"must be 0 or at least {_SMALLEST_CV:g}", value["cv"])
+    if 0 < cv < SMALLEST_RATE_CV:
+        raise FieldError(f"{path}.cv", f"must be 0 or at least {SMALLEST_RATE_CV:g}", value["cv"])
     return RandomRate(cv=cv, dist=dist)
 
 

@@ -9,7 +9,8 @@ arrivals), waiting place (patience) and holding place (hold) are replaced and th
 loading it (:func:`fluid.loading.load_scenario_text`).
 
 A day factor fitted from counts is the field ``random_rate: {dist: gamma, cv: C}`` of the
-source when the loader of this installation reads that field, and a comment line otherwise.
+source (a comment instead when its cv lies outside what the format takes,
+:data:`fluid.sources.RANDOM_RATE_CV`).
 """
 
 from __future__ import annotations
@@ -19,12 +20,12 @@ import math
 from dataclasses import dataclass
 
 from fluid.errors import ScenarioError
+from fluid.sources import SMALLEST_RATE_CV, RANDOM_RATE_CV
 
 from .fit_input import clock
 from .yaml_notes import to_yaml
 
-__all__ = ["FittedScenario", "records_scenario", "counts_scenario", "fill_scenario",
-           "reads_random_rate", "clock"]
+__all__ = ["FittedScenario", "records_scenario", "counts_scenario", "fill_scenario", "clock"]
 
 CAUTION_LINE = ("Decision support under the model's assumptions (Poisson arrivals per "
                 "interval, independent holds and patience); defer to local regulations and "
@@ -116,30 +117,6 @@ def _factor_notes(fit) -> list[str]:
             f"totals {fit.total_dispersion:.4g} (1 for Poisson)"]
 
 
-_READS_RANDOM_RATE: list[bool] = []
-
-
-def reads_random_rate() -> bool:
-    """Whether this installation's loader reads ``sources.NAME.random_rate``."""
-    if not _READS_RANDOM_RATE:
-        import warnings
-
-        from fluid.loading import load_scenario_text
-
-        probe = ("name: probe\ntime_unit: min\nsources:\n  s: {rate: 1.0, into: q, "
-                 "random_rate: {dist: gamma, cv: 0.1}}\npools:\n  a: 1\nplaces:\n  q: {}\n"
-                 "  t: {hold: 1.0}\ntransitions:\n  b: {in: [q, a], out: [t]}\n"
-                 "  c: {in: [t], out: [a]}\n")
-        try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                load_scenario_text(probe)
-            _READS_RANDOM_RATE.append(True)
-        except ScenarioError:
-            _READS_RANDOM_RATE.append(False)
-    return _READS_RANDOM_RATE[0]
-
-
 def _source_entry(spec: dict, after: dict, notes: list[str], path: tuple, into: str,
                   counts_fit, keep: dict | None = None) -> tuple[dict, dict, dict]:
     """The source's mapping with its profile (and day factor), and the comments at ``path``."""
@@ -152,12 +129,13 @@ def _source_entry(spec: dict, after: dict, notes: list[str], path: tuple, into: 
     if counts_fit is not None:
         factor = {"dist": "gamma", "cv": _r(counts_fit.factor.cv)}
         lines = _factor_notes(counts_fit)
-        if reads_random_rate():
+        if SMALLEST_RATE_CV <= factor["cv"] <= RANDOM_RATE_CV:
             entry["random_rate"] = factor
             above[path + ("random_rate",)] = lines
-        else:
-            lines = lines + [f"random_rate: {{dist: gamma, cv: {factor['cv']!r}}}  (this "
-                             "installation does not read random_rate: written as a comment)"]
+        else:  # (outside what the format takes: said, not written as a field)
+            why = (f"above the format's largest cv {RANDOM_RATE_CV:g}" if factor["cv"] > 1
+                   else "too small to tell from Poisson")
+            lines = lines + [f"random_rate: cv {factor['cv']!r} is {why}; not set"]
             above[path + ("into",)] = above.get(path + ("into",), []) + lines
     return entry, above, aft
 

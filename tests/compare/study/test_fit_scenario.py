@@ -11,7 +11,7 @@ import pytest
 import yaml
 
 from compare.study.fit_counts import DailyCounts, fit_counts
-from compare.study.fit_scenario import counts_scenario, fill_scenario, reads_random_rate
+from compare.study.fit_scenario import counts_scenario, fill_scenario
 from compare.study.yaml_notes import to_yaml
 from fluid.loading import load_scenario, load_scenario_text
 
@@ -35,9 +35,9 @@ def test_yaml_with_comments_reads_back_as_the_document():
     assert "  # above a\n  a:" in text and "- 1.5  # first" in text
 
 
-def _counts_fit():
+def _counts_fit(shape=25.0):
     rng = np.random.default_rng(5)
-    g = rng.gamma(25.0, 1 / 25.0, 40)  # cv 0.2
+    g = rng.gamma(shape, 1 / shape, 40)  # cv 1/sqrt(shape): 0.2 by default
     counts = rng.poisson(np.outer(g, [30.0, 60.0, 45.0]))
     data = DailyCounts(file="counts.csv", counts=counts.astype(float),
                        days=[str(i) for i in range(40)], intervals=["a", "b", "c"],
@@ -53,11 +53,18 @@ def test_counts_scenario_loads_and_marks_its_placeholders():
     assert text.count("PLACEHOLDER") == 2
     assert "Jongbloed and Koole" in text
     cv = float(f"{fit.factor.cv:.6g}")
-    if reads_random_rate():
-        assert s.sources["calls"].random_rate is not None
-    else:  # this installation does not read it: a comment that says so
-        assert f"random_rate: {{dist: gamma, cv: {cv!r}}}" in text
-        assert "does not read random_rate" in text
+    assert s.sources["calls"].random_rate is not None
+    assert s.sources["calls"].random_rate.cv == pytest.approx(cv, rel=1e-5)
+
+
+def test_a_day_factor_beyond_the_formats_bound_is_said_not_set():
+    # gamma shape 0.25: cv 2, above the largest cv random_rate takes (1)
+    fit = _counts_fit(shape=0.25)
+    assert fit.factor.cv > 1
+    text = counts_scenario(fit, time_unit="min", stamped=False).text
+    s = _quiet_load(text)
+    assert s.sources["calls"].random_rate is None
+    assert "above the format's largest cv 1; not set" in text
 
 
 def test_fill_an_existing_scenario_with_counts_keeps_the_rest():
