@@ -385,6 +385,22 @@ def _no_verdict(c) -> str | None:
     return no_verdict(c.simulation.replications)
 
 
+def _rate_section(rate, n: int) -> str:
+    """Each target with the day factors and without them (same seed), and the share of the
+    replications (days) that met it each way: what rate uncertainty alone does to the plan."""
+    cvs = ", ".join(f"{src} cv {v['cv']:g}" for src, v in rate.sources.items())
+    rows = [[t.target, ("max " if t.target == "abandonment" else "goal ") + fmt(t.goal),
+             _est(t.with_factor, n), _est(t.without_factor, n),
+             f"{fmt(100 * t.days_meeting_with, 3)} %", f"{fmt(100 * t.days_meeting_without, 3)} %"]
+            for t in rate.targets]
+    return format_table(
+        ["target", "goal", "with the day factor", "without it", "days meeting, with",
+         "without"], rows,
+        title=f"rate uncertainty (day factor per replication: {cvs}; the same seed without "
+              f"it):\n  days meeting = share of the {n} replications whose own value meets the "
+              "target")
+
+
 def comparison_text(s: Scenario, c) -> str:
     unit = s.time_unit
     parts = ["\n".join(comparison_summary(s, c)[:-1]), flags_text(c.flags, _no_verdict(c)),
@@ -403,6 +419,8 @@ def comparison_text(s: Scenario, c) -> str:
                                c.gaps.pools.to_dict("records"))]))
     if c.transient is not None and len(c.transient):
         parts.append(_day_section(s, c.transient, c.simulation.replications))
+    if c.rate.targets:
+        parts.append(_rate_section(c.rate, c.simulation.replications))
     notes = list(c.notes)  # (they carry the simulation's warnings too)
     scheduled = [r for r, p in s.pools.items() if p.schedule is not None]
     if scheduled and len(c.gaps.pools):

@@ -62,6 +62,16 @@ def test_quiet_when_the_target_holds_with_the_factor():
     c = compare(station(0.5, ["run.replications=20"]), workers=2)
     assert not c.flags_of("rate_uncertainty")
     assert c.rate.targets and not c.rate.targets[0].misses_with
+    # the terminal shows the stress test even without a flag: both estimates and the share of
+    # the days (replications) whose own service level met the goal, each way
+    from compare.present.text import comparison_text
+
+    text = comparison_text(c.scenario, c)
+    assert "rate uncertainty (day factor per replication: calls cv 0.4" in text
+    (pair,) = c.rate.targets
+    section = text[text.index("rate uncertainty (day factor"):]
+    row = next(line for line in section.splitlines() if line.startswith("queue "))
+    assert f"{100 * pair.days_meeting_with:.3g} %" in row
 
 
 def test_no_second_run_without_a_factor(monkeypatch):
