@@ -8,6 +8,7 @@ import errno
 import fcntl
 import os
 import tempfile
+import time
 from contextlib import contextmanager, suppress
 from pathlib import Path
 
@@ -77,10 +78,18 @@ class FolderLock:
             try:
                 fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
             except OSError as exc:
-                owner = _read_pid(fd)
-                os.close(fd)
                 if exc.errno not in (errno.EAGAIN, errno.EACCES, errno.EWOULDBLOCK):
+                    os.close(fd)
                     raise
+                owner = _read_pid(fd)
+                # (the holder writes its pid just after taking the lock: a loser that comes in
+                # between reads an empty file, so it waits a moment for the pid, at most 1 s)
+                for _ in range(20):
+                    if owner:
+                        break
+                    time.sleep(0.05)
+                    owner = _read_pid(fd)
+                os.close(fd)
                 who = "another fluidgap process" + (f" (pid {owner})" if owner else "")
                 raise StoreError(f"{self.directory} is in use by {who}; wait for it to end or "
                                  "use another directory") from None

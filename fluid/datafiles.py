@@ -65,6 +65,24 @@ def open_regular(path: str | os.PathLike) -> tuple[BinaryIO, int]:
         raise
 
 
+def open_input(path: str | os.PathLike, expected: str) -> tuple[BinaryIO, int]:
+    """:func:`open_regular` for a file the user named (a scenario, a CSV of records): any
+    failure becomes a :class:`~fluid.errors.ScenarioError` naming the file, e.g. "is a
+    directory, not a regular file, expected a YAML file" (``expected``: "a YAML file")."""
+    from .errors import ScenarioError
+
+    file = str(path)
+    try:
+        return open_regular(path)
+    except FileNotFoundError:
+        raise ScenarioError(file, "", "no such file") from None
+    except NotARegularFile as exc:
+        raise ScenarioError(file, "", f"{exc}, expected {expected}") from None
+    except (OSError, ValueError) as exc:
+        why = getattr(exc, "strerror", None) or "not a file name"
+        raise ScenarioError(file, "", f"cannot read: {why}") from None
+
+
 def _why(exc: BaseException) -> str:
     if isinstance(exc, NotARegularFile):
         return str(exc)

@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any, Iterable, Mapping
 
 from .clock import parse_start
-from .datafiles import SCENARIO_BYTES, DataFolder, NotARegularFile, open_regular
+from .datafiles import SCENARIO_BYTES, DataFolder, open_input
 from .distributions import parse_distribution
 from .errors import FieldError, ScenarioError, printable
 from .fields import LARGEST_NUMBER, name as _name, number as _real, whole as _whole
@@ -69,15 +69,7 @@ class ScenarioWarning(UserWarning):
 
 def _read_scenario_file(path: str | Path) -> str:
     file = str(path)
-    try:
-        handle, size = open_regular(path)
-    except FileNotFoundError:
-        raise ScenarioError(file, "", "no such file") from None
-    except NotARegularFile as exc:
-        raise ScenarioError(file, "", f"{exc}, expected a YAML file") from None
-    except (OSError, ValueError) as exc:
-        why = getattr(exc, "strerror", None) or "not a file name"
-        raise ScenarioError(file, "", f"cannot read: {why}") from None
+    handle, size = open_input(path, "a YAML file")
     with handle:
         if size > SCENARIO_BYTES:
             raise ScenarioError(file, "", f"is larger than {SCENARIO_BYTES:,} bytes, the limit "

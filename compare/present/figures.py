@@ -30,6 +30,7 @@ __all__ = [
     "rates_figure",
     "waits_figure",
     "pooled_waits",
+    "nothing_figure",
     "transient_figure",
     "scale_figure",
 ]
@@ -78,6 +79,16 @@ _INTERVAL_UNITS = {
 def _new_figure(width: float, height: float) -> Figure:
     with mpl.rc_context(_STYLE):
         return Figure(figsize=(width, height), layout="constrained")
+
+
+def nothing_figure(title: str, text: str) -> Figure:
+    """A small figure that says there is nothing to draw (``text``) under ``title``."""
+    fig = _new_figure(5.0, 2.0)
+    ax = fig.add_subplot()
+    ax.set_axis_off()
+    ax.text(0.5, 0.5, text, ha="center", va="center")
+    fig.suptitle(title)
+    return fig
 
 
 def _grid(fig: Figure, n: int, ncols: int):
@@ -211,12 +222,7 @@ def waits_figure(waits: Mapping[str, np.ndarray], time_unit: str,
     targets = targets or {}
     names = list(waits)
     if not names:
-        fig = _new_figure(5.0, 2.0)
-        ax = fig.add_subplot()
-        ax.set_axis_off()
-        ax.text(0.5, 0.5, "no waits recorded", ha="center", va="center")
-        fig.suptitle(title)
-        return fig
+        return nothing_figure(title, "no waits recorded")
     ncols = max(1, min(ncols, len(names)))
     nrows = math.ceil(len(names) / ncols)
     fig = _new_figure(3.3 * ncols, 0.6 + 2.5 * nrows)

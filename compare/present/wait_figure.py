@@ -20,7 +20,8 @@ import matplotlib as mpl
 import numpy as np
 from matplotlib.figure import Figure
 
-from .figures import _STYLE, OPTIMISTIC, REFERENCE, SIMULATED, TARGET, _grid, _new_figure
+from .figures import (_STYLE, OPTIMISTIC, REFERENCE, SIMULATED, TARGET, _grid, _new_figure,
+                      nothing_figure)
 
 __all__ = ["pooled_outcome_waits", "convention_share", "service_waits_figure"]
 
@@ -71,12 +72,7 @@ def service_waits_figure(waits: Mapping[str, Mapping[str, np.ndarray]], targets:
     the convention has one, and the service level of these waits by the convention."""
     names = [p for p in targets if p in waits]
     if not names:
-        fig = _new_figure(5.0, 2.0)
-        ax = fig.add_subplot()
-        ax.set_axis_off()
-        ax.text(0.5, 0.5, "no waits recorded", ha="center", va="center")
-        fig.suptitle(title)
-        return fig
+        return nothing_figure(title, "no waits recorded")
     ncols = max(1, min(ncols, len(names)))
     fig = _new_figure(4.6 * ncols, 0.8 + 3.0 * math.ceil(len(names) / ncols))
     axes = _grid(fig, len(names), ncols)

@@ -2,7 +2,7 @@
 
 A file is read as UTF-8 CSV with a header line, row by row (the standard ``csv`` module), at
 most ``max_rows`` rows (``--max-file-values``) of at most :data:`fluid.datafiles.LINE_BYTES`
-bytes each, from a regular file only (:func:`fluid.datafiles.open_regular`). Problems are
+bytes each, from a regular file only (:func:`fluid.datafiles.open_input`). Problems are
 :class:`fluid.errors.ScenarioError` naming the file, the column and the line, never quoting
 the content.
 
@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from fluid.datafiles import LINE_BYTES, NotARegularFile, open_regular
+from fluid.datafiles import LINE_BYTES, open_input
 from fluid.errors import ScenarioError
 
 __all__ = ["Table", "read_table", "TimeColumn", "time_column", "SECONDS_PER_UNIT",
@@ -57,15 +57,7 @@ class Table:
 def read_table(path, max_rows: int) -> Table:
     """Read the CSV file ``path`` (header line first) with at most ``max_rows`` rows."""
     file = str(path)
-    try:
-        handle, size = open_regular(path)
-    except FileNotFoundError:
-        raise ScenarioError(file, "", "no such file") from None
-    except NotARegularFile as exc:
-        raise ScenarioError(file, "", f"{exc}, expected a CSV file") from None
-    except (OSError, ValueError) as exc:
-        raise ScenarioError(file, "", "cannot read: "
-                            f"{getattr(exc, 'strerror', None) or 'not a file name'}") from None
+    handle, size = open_input(path, "a CSV file")
     too_large = (f"holds more than the limit of {max_rows:,} rows (or "
                  f"{BYTES_PER_ROW * max_rows:,} bytes); raise it with --max-file-values")
     with handle:
