@@ -105,7 +105,29 @@ def inspect_text(s: Scenario, invariants: list[dict], uncovered: list[str],
         if s.targets.abandonment_max is not None:
             rows.append(["abandonment", f"at most {fmt(s.targets.abandonment_max * 100, 3)} %"])
         parts.append(format_table(["target", "goal"], rows))
+    if s.shifts:
+        parts.append(_shift_patterns(s))
     return "\n\n".join(parts)
+
+
+def _shift_patterns(s: Scenario) -> str:
+    """The shift patterns `staff --shifts` may mix: pool, allowed starts, length, breaks, cost
+    (times in the scenario's unit, starts as clock times when it has a clock)."""
+    from fluid.clock import clock_label
+
+    def starts(t) -> str:
+        first, last = clock_label(s, t.starts[0]), clock_label(s, t.starts[-1])
+        if len(t.starts) == 1:
+            return first
+        steps = {round(b - a, 9) for a, b in zip(t.starts, t.starts[1:])}
+        every = f" every {fmt(steps.pop())} {s.time_unit}" if len(steps) == 1 else ""
+        return f"{len(t.starts)} from {first} to {last}{every}"
+
+    rows = [[t.name, t.pool, starts(t), f"{fmt(t.length)} {s.time_unit}",
+             ", ".join(f"{fmt(b.length)} after {fmt(b.after)}" for b in t.breaks) or "-",
+             fmt(t.cost)] for t in s.shifts.values()]
+    return format_table(["shift", "pool", "starts", "length", "breaks", "cost per agent"], rows,
+                        title="shift patterns (for `fluidgap staff --shifts`):")
 
 
 def _patience_exits(s: Scenario) -> dict[str, str | None]:
@@ -151,6 +173,10 @@ def inspect_json(s: Scenario, invariants: list[dict], uncovered: list[str],
             "service": {p: t.to_json(s.time_unit) for p, t in s.targets.service.items()},
             "abandonment_max": s.targets.abandonment_max,
         },
+        # (times in the scenario's unit from t = 0; breaks off duty, after the shift's start)
+        "shifts": {n: {"pool": t.pool, "starts": list(t.starts), "length": t.length,
+                       "breaks": [{"after": b.after, "length": b.length} for b in t.breaks],
+                       "cost": t.cost} for n, t in s.shifts.items()},
     }
 
 

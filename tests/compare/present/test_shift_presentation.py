@@ -72,3 +72,24 @@ def test_clock_ticks_fall_on_whole_clock_times():
     ticks = clock_ticks(s, 15.0, 600.0)
     # at most 12 ticks: every hour, on the hour (08:10 + 50 min = 09:00)
     assert np.allclose(ticks, np.arange(50.0, 601.0, 60.0))
+
+
+def test_inspect_lists_the_shift_patterns(capsys):
+    import json
+
+    from compare.cli.main import main
+
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[3] / "configs" / "two-pool-day.yaml"
+    assert main(["inspect", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "shift patterns (for `fluidgap staff --shifts`):" in out
+    # desk_day: starts {first: 0, last: 240, every: 15} from 08:00, 360 long, a break of 15
+    row = next(line for line in out.splitlines() if line.startswith("desk_day "))
+    assert row.split() == ["desk_day", "desk", "17", "from", "08:00", "to", "12:00", "every", "15",
+                           "min", "360", "min", "15", "after", "180", "6"]
+    assert main(["inspect", str(path), "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["shifts"]["desk_short"] == {"pool": "desk", "starts": [15.0 * k for k in range(25)],
+                                           "length": 240.0, "breaks": [], "cost": 4.4}
