@@ -44,3 +44,15 @@ def test_a_simulation_run_imports_none_of_them():
 def test_the_command_line_starts_without_them():
     # what every `fluidgap` command pays before it does anything (`--help`, `inspect`)
     assert _imported("import compare.cli, compare.cli.handlers, compare.cli.destinations") == "[]"
+
+
+def test_simulate_without_a_report_imports_no_plotting():
+    # `fluidgap simulate --json`: matplotlib (half a second) only for --report or --csv; the
+    # summary's t quantile needs scipy.stats, and one replication per worker here needs no pandas
+    code = ("import contextlib, io\n"
+            "from compare.cli.main import main\n"
+            "with contextlib.redirect_stdout(io.StringIO()):\n"
+            "    assert main(['simulate', 'configs/single-station.yaml', '--reps', '2',\n"
+            "                 '--workers', '1', '--horizon', '100', '--warmup', '10',\n"
+            "                 '--quiet', '--json']) == 0")
+    assert "matplotlib" not in _imported(code)

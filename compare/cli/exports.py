@@ -44,11 +44,12 @@ def _summary(scenario, sim) -> list[str]:
 def simulation_outputs(args, scenario, sim, text: str, doc: dict):
     """Write ``--csv`` now (naming it in ``doc`` and ``text``) and return ``(text, report)``,
     ``report`` the writer :func:`compare.cli.outcome.finish` calls for ``--report``."""
-    from ..present.simulation_report import simulation_csv, simulation_report
     from ..present.text import CAUTION
 
     per_rep = bool(getattr(args, "per_replication", False))
     if getattr(args, "csv", None):
+        from ..present.simulation_report import simulation_csv  # (imports matplotlib: slow)
+
         doc["caution"] = CAUTION  # (finish sets the same; result.json carries it too)
         doc["csv"] = str(args.csv)
         with _writing(args, "--csv", args.csv):
@@ -56,6 +57,8 @@ def simulation_outputs(args, scenario, sim, text: str, doc: dict):
         text += f"\n\ntables written to {args.csv}"
 
     def report(directory):
+        from ..present.simulation_report import simulation_report
+
         return simulation_report(directory, sim, scenario, json_doc=doc, caution=CAUTION,
                                  summary=_summary(scenario, sim), per_replication=per_rep)
 
