@@ -3,8 +3,11 @@
 
 ``--csv DIR``: a folder, replaced whole, holding the tidy tables (:mod:`compare.present.tidy`)
 as CSV, as Parquet beside them when pyarrow is installed, and ``result.json``;
-``--per-replication`` adds the per-replication table. Both destinations are checked before
-anything runs (:mod:`compare.cli.destinations`).
+``--per-replication`` adds the per-replication table. A comparison with per-interval rows also
+gets ``per_interval_day``, the one wide table: one row per interval (clock time, staff, offered
+load, each figure with its interval and fluid value; :mod:`compare.study.day_table`), a view of
+the per-interval rows the tidy tables hold. Both destinations are checked before anything runs
+(:mod:`compare.cli.destinations`).
 """
 
 from __future__ import annotations
@@ -79,6 +82,12 @@ def comparison_csv(args, scenario, comparison, text: str, doc: dict) -> str:
               "flags": comparison.flags_frame()}
     if getattr(args, "per_replication", False):
         tables["per_replication"] = per_replication_table(sim, scenario)
+    if comparison.transient is not None and len(comparison.transient):
+        from ..study.day_table import day_table
+
+        # the one wide table: the analyst's view of the per-interval rows of `estimates` and
+        # `gaps`, one row per interval (as the report's per_interval_day.csv)
+        tables["per_interval_day"] = day_table(scenario, comparison.transient)
     doc["caution"] = CAUTION
     doc["csv"] = str(args.csv)
     with _writing(args, "--csv", args.csv):

@@ -127,6 +127,23 @@ def test_compare_csv(capsys, tmp_path, monkeypatch):
     assert rate.fluid == doc["gaps"]["transitions"]["answer"]["fluid"]
 
 
+def test_compare_csv_of_a_day_holds_the_wide_per_interval_table(capsys, tmp_path, monkeypatch):
+    # issue 11 item 1: the wide per-interval table in the CSV too, one row per interval, the
+    # same rows as the tidy per-interval estimates
+    monkeypatch.setattr(tidy, "parquet_available", lambda: False)
+    out = tmp_path / "d"
+    day = str(ROOT / "configs" / "day-with-shifts.yaml")
+    code, text, err = run(capsys, "compare", day, "--reps", "2", "--horizon", "120",
+                          "--workers", "1", "--quiet", "--csv", out)
+    assert code == 0, err
+    assert "per_interval_day.csv" in {p.name for p in out.iterdir()}
+    wide = pd.read_csv(out / "per_interval_day.csv")
+    assert list(wide["clock"]) == ["08:00-08:30", "08:30-09:00", "09:00-09:30", "09:30-10:00"]
+    est = read(out / "estimates.csv")
+    sl = est[(est.metric == "service_level") & (est.name == "queue")].sort_values("interval")
+    assert np.allclose(wide["service_level.queue"], sl["mean"].astype(float), equal_nan=True)
+
+
 def test_foreign_folder_refused_before_running(capsys, tmp_path):
     out = tmp_path / "mine"
     out.mkdir()
