@@ -72,7 +72,7 @@ def staff_day(args, s) -> Outcome:
     except CoverError as exc:
         raise InputError(f"fluidgap staff --shifts: {s.file}: shifts: {exc}") from None
     except ValueError as exc:
-        if isinstance(exc, ScenarioError):
+        if isinstance(exc, (ScenarioError, InputError)):  # (they name the command already)
             raise
         raise InputError(f"fluidgap staff: {exc}") from None
     doc = result.to_json()

@@ -66,6 +66,11 @@ def test_refusals(capsys, tmp_path):
     # the scenario file itself is never overwritten
     code, _, err = run(capsys, "staff", DAY, "--shifts", "--write-scenario", DAY, *FAST)
     assert code == 2 and "never overwritten" in err
+    # one replication gives no interval: refused once, the command named once
+    code, _, err = run(capsys, "staff", DAY, "--shifts", "--reps", "1", "--quiet")
+    assert code == 2
+    assert err == ("fluidgap staff: --reps must be >= 2 for an interval, and its verdicts need "
+                   "one (got 1)\n")
 
 
 def test_shifts_with_fluid_only_is_refused(capsys):
