@@ -356,10 +356,15 @@ def _markings(scenario, flat, counters, src_z, level, abandoned, n):
         markings[p] = into - out
         if p in flat.avail_rows:
             # the content at mid-step: the grid serves a step's fluid at its end, so the content
-            # just after is low by half of it (and just before high by half); the mean over the
-            # step, which a time average needs, lies between (exact to O(dt^2) when smooth)
-            half = 0.5 * np.diff(taken, prepend=taken[:1])
-            waiting[p] = flat.row(flat.avail_rows[p]) - out + half
+            # just after is low by half of what it served from the queue that was there when the
+            # step began (and just before high by half); the mean over the step, which a time
+            # average needs, lies between (exact to O(dt^2) when smooth). Fluid that becomes
+            # available and is taken within one step never queued (an underloaded place holds
+            # no fluid queue: its content stays 0, not half a step of inflow)
+            after = flat.row(flat.avail_rows[p]) - out
+            served = np.diff(taken, prepend=taken[:1])
+            queued = np.maximum(np.concatenate([[0.0], after[:-1]]), 0.0)
+            waiting[p] = after + 0.5 * np.minimum(served, queued)
         elif p in flat.distributed:
             waiting[p] = flat.row(flat.hold_rows[p]) - out
         else:

@@ -114,6 +114,18 @@ def test_compiled_and_plain_python_loops_agree():
 # --- Whitt (2006): the stationary overloaded place ---------------------------------------------------
 
 
+@pytest.mark.parametrize("model", [COUNTERS, WITH_ABANDONMENT])
+def test_an_underloaded_place_holds_no_fluid_queue(model):
+    # design.md 4.1: below capacity the fluid wait is zero (and so is its queue), as the
+    # stationary figures of the LP path say; the grid serves a step's arrivals at its end, which
+    # must not read as half a step of inflow waiting (it read lambda dt / 2 = 0.0125 here)
+    s = load_scenario_text(station(2.5, 20, "{dist: exponential, mean: 4.0}",
+                                   "{dist: exponential, mean: 3.0}", horizon=100.0))
+    sol = integrate_counters(s, dt=0.01, horizon=100.0, model=model)
+    assert np.max(np.abs(sol.waiting["queue"])) < 1e-9
+    assert sol.counters["answer"][-1] == pytest.approx(2.5 * 100.0, rel=1e-3)
+
+
 @pytest.mark.parametrize("hold", ["1.0", "{dist: exponential, mean: 1.0}"])
 def test_whitt_stationary_values_with_exponential_patience(hold):
     # Whitt (2006), recomputed in shared/references.md: lambda = 110, s = 100, mu = 1,
