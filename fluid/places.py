@@ -37,7 +37,7 @@ from .service_level import fifo_service_level, place_curves
 from .structure import inflow, outflow, waiting_places
 
 __all__ = ["PLACE_TOLERANCE", "FluidPlace", "stationary_place", "window_place", "place_figures",
-           "convention_share", "cohort_service_level", "queue_average"]
+           "convention_share", "cohort_service_level", "place_cohorts", "queue_average"]
 
 #: Relative tolerance below which a place's fluid outflow counts as keeping up with its inflow
 #: (the LP is exact to ~1e-9, the counters' long-run slopes to ~1e-6).
@@ -185,16 +185,12 @@ def queue_average(sol, place: str, start: float, end: float) -> float:
     return float(np.trapezoid(ys, ts) / (end - start))
 
 
-def cohort_service_level(scenario: Scenario, sol, place: str, within: float, start: float,
-                         end: float, target=None) -> float:
-    """Share of the fluid becoming available in an impatient ``place`` during ``(start, end]``
-    that is served within ``within``, from the age-structured queue of the dynamics with
-    abandonment: the cohort of step j is served when the head of the queue has moved past it
-    (first come, first served), after waiting w_j, and what of it is still there then is its
-    survival F^c(w_j) (patience). Abandoners are counted by ``target``'s convention (None:
-    counted against, over every cohort; "excluded": over what is taken; "excluded_within" T2:
-    over what is taken and what abandons after waiting more than T2, F(w_j) - F(T2), up to
-    the end of the grid for a cohort never served). nan when nothing becomes available."""
+def place_cohorts(scenario: Scenario, sol, place: str, start: float, end: float):
+    """The cohorts of the fluid becoming available in an impatient ``place`` during ``(start,
+    end]`` on the grid of the dynamics with abandonment: ``(mass, step, served_at, wait)`` per
+    cohort (its amount, the grid step it became available in, the step the head of the queue
+    passes it, first come first served, or the number of steps when never, and its wait until
+    then), or None when nothing becomes available."""
     avail = place_curves(scenario, sol, place)[0] + sol.abandoned[place]
     dt = sol.dt
     n = len(sol.times)
@@ -206,16 +202,35 @@ def cohort_service_level(scenario: Scenario, sol, place: str, within: float, sta
     new = np.diff(avail, prepend=0.0)
     sel = (sol.times > start) & (sol.times <= end + 1e-12 * dt) & (new > 0)
     if new[sel].sum() <= 0:
-        return math.nan
+        return None
     j = k[sel]
     served_at = np.searchsorted(head, j, side="right")  # first step whose head is past j
     served_at = np.minimum(served_at, n)
-    # served at its own step: no wait; later: half a step more (it became available mid-step)
-    waits = np.where(served_at > j, (served_at - j + 0.5) * dt, 0.0)
+    # served at its own step: no wait; later: the whole steps between (the grid serves a
+    # step's queued fluid at its end, which is its midpoint in continuous time, as the queue's
+    # mid-step content in fluid.counters says, and the cohort became available mid-step)
+    waits = np.where(served_at > j, (served_at - j) * dt, 0.0)
+    return new[sel], j, served_at, waits
+
+
+def cohort_service_level(scenario: Scenario, sol, place: str, within: float, start: float,
+                         end: float, target=None) -> float:
+    """Share of the fluid becoming available in an impatient ``place`` during ``(start, end]``
+    that is served within ``within``, from the age-structured queue of the dynamics with
+    abandonment: the cohort of step j is served when the head of the queue has moved past it
+    (first come, first served), after waiting w_j, and what of it is still there then is its
+    survival F^c(w_j) (patience). Abandoners are counted by ``target``'s convention (None:
+    counted against, over every cohort; "excluded": over what is taken; "excluded_within" T2:
+    over what is taken and what abandons after waiting more than T2, F(w_j) - F(T2), up to
+    the end of the grid for a cohort never served). nan when nothing becomes available."""
+    cohorts = place_cohorts(scenario, sol, place, start, end)
+    if cohorts is None:
+        return math.nan
+    mass, j, served_at, waits = cohorts
+    dt, n = sol.dt, len(sol.times)
     patience = scenario.places[place].patience
     survive = np.array([1.0 - patience.cdf(w) if w > 0 else 1.0 for w in waits])
     ok = (waits <= within * (1 + 1e-9) + 1e-12) & (served_at < n)
-    mass = new[sel]
     within_mass = float((mass * survive * ok).sum())
     if getattr(target, "abandoned", "against") == "against":
         return within_mass / float(mass.sum())

@@ -12,6 +12,9 @@ the simulation's per-interval table (``desim.replicate(..., interval=STEP)``), m
   ``abandon_to`` sends back);
 * ``queue`` (per waiting place): time average over the interval of the fluid jobs available and
   not yet taken (trapezoid rule on the grid, whose counters are piecewise linear);
+* ``wait`` (per waiting place): mean wait of the fluid that becomes available in the interval
+  and leaves the place (taken or abandoning), by arrival interval as the simulation counts it
+  (:func:`fluid.interval_waits.interval_mean_wait`);
 * ``service_level`` (per place with a target): share of the fluid that becomes available in the
   interval and is taken within the target's ``within``, abandoners counted by the target's
   convention (as the simulation counts them, by arrival interval): by cohorts
@@ -34,6 +37,7 @@ import numpy as np
 import pandas as pd
 
 from fluid.counters import COUNTERS, WITH_ABANDONMENT, CounterSolution, integrate_counters
+from fluid.interval_waits import interval_mean_wait
 from fluid.scenario import Scenario
 from fluid.places import cohort_service_level, queue_average
 from fluid.service_level import fifo_service_level
@@ -139,6 +143,8 @@ def fluid_interval_value(scenario: Scenario, sol: CounterSolution, metric: str, 
                          if scenario.places[p].abandon_to is None))
     if metric == "queue" and name in sol.waiting:
         return queue_average(sol, name, start, end)
+    if metric == "wait" and name in sol.waiting:
+        return interval_mean_wait(scenario, sol, name, start, end)
     if metric in ("staff", "busy") and name in scenario.pools and name in sol.markings:
         return _pool_value(scenario, sol, metric, name, start, end)
     if metric == "service_level" and name in scenario.targets.service:
