@@ -24,7 +24,7 @@ import numpy as np
 
 from .places import place_cohorts
 from .scenario import Scenario
-from .service_level import _first_reach, place_curves
+from .service_level import fifo_waits
 
 __all__ = ["interval_mean_wait"]
 
@@ -67,16 +67,12 @@ def _cohort_mean_wait(scenario: Scenario, sol, place: str, start: float, end: fl
 
 
 def _fifo_mean_wait(scenario: Scenario, sol, place: str, start: float, end: float) -> float:
-    avail, taken = place_curves(scenario, sol, place)
-    t = sol.times
-    mids = (t[:-1] + t[1:]) / 2
-    sel = (mids > start) & (mids < end)
-    amount = np.diff(avail)[sel]
-    if amount.sum() <= 0:
+    fifo = fifo_waits(scenario, sol, place, start, end)
+    if fifo is None:
         return math.nan
-    levels = ((avail[:-1] + avail[1:]) / 2)[sel]
-    waits = np.maximum(_first_reach(t, taken, levels) - mids[sel], 0.0)
-    left = np.isfinite(waits)
+    amount, waits = fifo
+    left = np.isfinite(waits)  # (fluid still waiting at the end has not left)
     if amount[left].sum() <= 0:
         return math.nan
-    return float((amount[left] * waits[left]).sum() / amount[left].sum())
+    w = np.maximum(waits[left], 0.0)
+    return float((amount[left] * w).sum() / amount[left].sum())

@@ -30,7 +30,7 @@ from .counters import CounterSolution, integrate_counters
 from .scenario import Scenario
 from .structure import inflow, outflow
 
-__all__ = ["fifo_service_level", "place_curves", "service_level_verdicts"]
+__all__ = ["fifo_service_level", "fifo_waits", "place_curves", "service_level_verdicts"]
 
 # Relative slack when comparing a fluid level or a wait with a threshold (float noise only)
 _SLACK = 1e-9
@@ -61,6 +61,23 @@ def _first_reach(times: np.ndarray, curve: np.ndarray, levels: np.ndarray) -> np
     return out
 
 
+def fifo_waits(scenario: Scenario, sol: CounterSolution, place: str, start: float,
+               end: float) -> tuple[np.ndarray, np.ndarray] | None:
+    """``(amount, wait)`` of each grid step's fluid becoming available in ``place`` during
+    ``(start, end)``, jobs leaving first-in first-out along the counter curves (wait inf for
+    fluid not taken by the end of the grid; see :func:`fifo_service_level`), or None when
+    nothing becomes available."""
+    avail, taken = place_curves(scenario, sol, place)
+    t = sol.times
+    mids = (t[:-1] + t[1:]) / 2
+    sel = (mids > start) & (mids < end)
+    amount = np.diff(avail)[sel]
+    if amount.sum() <= 0:
+        return None
+    levels = ((avail[:-1] + avail[1:]) / 2)[sel]
+    return amount, _first_reach(t, taken, levels) - mids[sel]
+
+
 def fifo_service_level(scenario: Scenario, sol: CounterSolution, place: str, within: float,
                        start: float, end: float) -> float:
     """Share of the fluid becoming available in ``place`` during ``(start, end]`` that is taken
@@ -70,15 +87,10 @@ def fifo_service_level(scenario: Scenario, sol: CounterSolution, place: str, wit
     linear between grid points). Patience is ignored, so no fluid abandons here and every
     abandoner convention of a target (:class:`fluid.scenario.ServiceTarget`) gives this same
     share. nan when nothing becomes available."""
-    avail, taken = place_curves(scenario, sol, place)
-    t = sol.times
-    mids = (t[:-1] + t[1:]) / 2
-    sel = (mids > start) & (mids < end)
-    amount = np.diff(avail)[sel]
-    if amount.sum() <= 0:
+    fifo = fifo_waits(scenario, sol, place, start, end)
+    if fifo is None:
         return math.nan
-    levels = ((avail[:-1] + avail[1:]) / 2)[sel]
-    waits = _first_reach(t, taken, levels) - mids[sel]
+    amount, waits = fifo
     ok = waits <= within * (1 + _SLACK) + _SLACK
     return float(amount[ok].sum() / amount.sum())
 
